@@ -1,0 +1,161 @@
+package main
+
+import (
+	"bufio"
+	"encoding/json"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"slices"
+	"strconv"
+	"strings"
+	"testing"
+	"time"
+
+	"glowgate/bus/mqtt/mqtttest"
+)
+
+var rssFor = flag.Duration("rss-for", time.Minute, "how long BenchmarkRunRSS lets the daemon run before reading its RSS")
+
+// BenchmarkRunEndToEnd runs the glowgate binary as its own process with 50
+// heads on one Modbus TCP endpoint (a loopback responder in the test
+// process) publishing at QoS 1 to a real Mosquitto, and a subscriber in
+// the test process. It reports readings/s delivered and the latency from
+// acquisition to the subscriber, at two poll rates:
+//
+//	flat-out   every head every 2 ms (25,000 readings/s offered): the ceiling
+//	1000/s     every head every 50 ms: latency at a plant-like load
+//
+// Latency is the subscriber's clock minus the reading's time. That time is
+// when the poll's request was sent, before the reply, and is truncated to
+// the millisecond, so the figures overstate the latency from poll reply to
+// subscriber by up to the Modbus round trip plus 1 ms; they are upper
+// bounds. Beside them: the QoS 1 ceiling of one plain paho client to the
+// same broker in the same run (mqtttest.RawQoS1Ceiling), and the ratio.
+//
+//	go test -run '^$' -bench RunEndToEnd -benchtime 20000x ./cmd/glowgate/
+func BenchmarkRunEndToEnd(b *testing.B) {
+	for _, bc := range []struct {
+		name   string
+		period time.Duration
+	}{
+		{"flat-out", 2 * time.Millisecond},
+		{"1000/s", 50 * time.Millisecond},
+	} {
+		b.Run(bc.name, func(b *testing.B) { benchRun(b, 50, bc.period) })
+	}
+}
+
+func benchRun(b *testing.B, n int, period time.Duration) {
+	broker := mqtttest.Start(b)
+	srv := headServer(b, n, 1400)
+	names := make([]string, n)
+	for i := range names {
+		names[i] = fmt.Sprintf("head%02d", i+1)
+	}
+	cfgPath := filepath.Join(b.TempDir(), "gw.yaml")
+	text := strings.ReplaceAll(gatewayConfig(broker.URL(), srv.Addr(), names...), "period: 50ms", "period: "+period.String())
+	writeFile(b, cfgPath, strings.Replace(text, "mqtt:\n", "mqtt:\n  queue: 200000\n", 1))
+	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
+	start(b, io.Discard, "run", "-config", cfgPath, "-log-level", "warn")
+	for i := 0; i < 2*n; i++ { // warm up: connected, every head answered
+		if _, ok := sub.Next(10 * time.Second); !ok {
+			b.Fatal("no readings")
+		}
+	}
+
+	b.ResetTimer()
+	began := time.Now()
+	lat := make([]float64, 0, b.N)
+	var r struct {
+		Time time.Time `json:"time"`
+	}
+	for len(lat) < b.N {
+		m, ok := sub.Next(10 * time.Second)
+		if !ok {
+			b.Fatalf("received %d of %d", len(lat), b.N)
+		}
+		at := time.Now()
+		if err := json.Unmarshal(m.Payload, &r); err != nil {
+			b.Fatal(err)
+		}
+		lat = append(lat, float64(at.Sub(r.Time).Microseconds())/1e3)
+	}
+	rate := float64(len(lat)) / time.Since(began).Seconds()
+	b.StopTimer()
+	slices.Sort(lat)
+	b.ReportMetric(rate, "readings/s")
+	b.ReportMetric(lat[len(lat)/2], "p50_ms")
+	b.ReportMetric(lat[len(lat)*99/100], "p99_ms")
+	b.ReportMetric(lat[len(lat)-1], "max_ms")
+	ceiling := mqtttest.RawQoS1Ceiling(b, broker.URL(), 20000, 520)
+	b.ReportMetric(ceiling, "raw_qos1_msgs/s")
+	b.ReportMetric(rate/ceiling, "ratio_to_raw")
+	b.ReportMetric(0, "ns/op")
+}
+
+// BenchmarkRunRSS runs the glowgate binary with 50 heads polled at 10 Hz
+// (500 readings/s) against a loopback Modbus responder and a real
+// Mosquitto, and reports its resident set size after -rss-for (default a
+// minute), with the peak (VmHWM) beside it.
+//
+//	go test -run '^$' -bench RunRSS -benchtime 1x ./cmd/glowgate/
+func BenchmarkRunRSS(b *testing.B) {
+	broker := mqtttest.Start(b)
+	srv := headServer(b, 50, 1400)
+	names := make([]string, 50)
+	for i := range names {
+		names[i] = fmt.Sprintf("head%02d", i+1)
+	}
+	cfgPath := filepath.Join(b.TempDir(), "gw.yaml")
+	text := strings.ReplaceAll(gatewayConfig(broker.URL(), srv.Addr(), names...), "period: 50ms", "period: 100ms")
+	writeFile(b, cfgPath, text)
+	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
+
+	p := start(b, io.Discard, "run", "-config", cfgPath)
+	if _, ok := sub.Next(10 * time.Second); !ok {
+		b.Fatal("no readings")
+	}
+	received := 0
+	deadline := time.After(*rssFor)
+	for wait := true; wait; {
+		select {
+		case <-sub.C:
+			received++
+		case <-deadline:
+			wait = false
+		}
+	}
+	rss, hwm := procMemory(b, p.cmd.Process.Pid)
+	b.ReportMetric(rss, "rss_MB")
+	b.ReportMetric(hwm, "peak_rss_MB")
+	b.ReportMetric(float64(received)/rssFor.Seconds(), "readings/s")
+	b.ReportMetric(0, "ns/op")
+}
+
+// procMemory reads VmRSS and VmHWM of a process from /proc, in MB.
+func procMemory(tb testing.TB, pid int) (rss, hwm float64) {
+	tb.Helper()
+	f, err := os.Open(fmt.Sprintf("/proc/%d/status", pid))
+	if err != nil {
+		tb.Fatal(err)
+	}
+	defer f.Close()
+	sc := bufio.NewScanner(f)
+	for sc.Scan() {
+		fields := strings.Fields(sc.Text())
+		if len(fields) < 2 {
+			continue
+		}
+		kb, _ := strconv.ParseFloat(fields[1], 64)
+		switch fields[0] {
+		case "VmRSS:":
+			rss = kb / 1024
+		case "VmHWM:":
+			hwm = kb / 1024
+		}
+	}
+	return rss, hwm
+}

@@ -1,0 +1,53 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"strings"
+
+	"glowgate/daemon"
+	"glowgate/daemon/config"
+)
+
+func runCmd(ctx context.Context, e *env, args []string) error {
+	fs := newFlags("run", "-config FILE [-broker URL]",
+		"Polls every configured head and publishes its readings until SIGINT or SIGTERM.\n"+
+			"SIGHUP reloads the configuration; an invalid one is logged and the running one stays.", e.stderr)
+	path := fs.String("config", "", "configuration file (YAML)")
+	broker := fs.String("broker", "", "broker URL(s), comma-separated, replacing mqtt.brokers (e.g. tcp://127.0.0.1:1883)")
+	var lf logFlags
+	lf.register(fs, "info")
+	if err := parseNoArgs(fs, args); err != nil {
+		return err
+	}
+	log, err := lf.logger(e.stderr)
+	if err != nil {
+		return err
+	}
+	cfg, err := loadConfig(*path)
+	if err != nil {
+		return err
+	}
+	var brokers []string
+	if *broker != "" {
+		brokers = strings.Split(*broker, ",")
+		if err := config.CheckBrokerURLs(brokers); err != nil {
+			return usageError{fmt.Errorf("-broker: %w", err)}
+		}
+	}
+	d, err := daemon.New(daemon.Options{
+		Config:  cfg,
+		Load:    func() (*config.Config, error) { return config.Load(*path) },
+		Reload:  e.hup,
+		Brokers: brokers,
+		Logger:  log,
+		Version: versionString(),
+	})
+	if err != nil {
+		return err
+	}
+	log.Info("glowgate starting", "version", versionString(), "config", *path, "gateway", cfg.Gateway, "heads", len(cfg.Heads))
+	err = d.Run(ctx)
+	log.Info("glowgate stopped")
+	return err
+}

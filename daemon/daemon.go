@@ -1,0 +1,344 @@
+// Package daemon is glowgate's composition root: it turns a configuration
+// into line pollers, a conversion pipeline and a publisher, runs them, and
+// reloads or stops them.
+//
+// Data flow for each poll:
+//
+//	line owner (one goroutine per endpoint) -> registers -> channel signals
+//	  -> convert.Ratio -> quality and flags -> Reading -> publisher queue
+//
+// Polling never waits for the broker: the publisher's queue takes a
+// reading or counts it dropped.
+package daemon
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"os"
+	"slices"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"golang.org/x/sync/errgroup"
+
+	"glowgate/bus/modbus"
+	"glowgate/bus/mqtt"
+	"glowgate/daemon/config"
+)
+
+// Options configure a Daemon.
+type Options struct {
+	Config *config.Config
+	// Load re-reads the configuration whenever a value arrives on Reload
+	// (SIGHUP, as the command wires it); nil disables reload.
+	Load   func() (*config.Config, error)
+	Reload <-chan os.Signal
+	// Brokers, when not empty, replace the configured broker list.
+	Brokers []string
+	Logger  *slog.Logger
+	Version string
+	// Now is the clock for acquisition times; nil means time.Now.
+	Now func() time.Time
+}
+
+// Daemon polls the configured heads and publishes their readings.
+type Daemon struct {
+	opts  Options
+	log   *slog.Logger
+	now   func() time.Time
+	seqMu sync.Mutex
+	seq   atomic.Uint64
+
+	mu     sync.Mutex
+	cfg    *config.Config
+	heads  []*head
+	latest map[string]mqtt.Reading
+	pub    *mqtt.Publisher
+}
+
+// New checks that every head of the configuration can be built.
+func New(o Options) (*Daemon, error) {
+	if o.Config == nil {
+		return nil, errors.New("daemon: no configuration")
+	}
+	if o.Logger == nil {
+		o.Logger = slog.New(slog.DiscardHandler)
+	}
+	if o.Now == nil {
+		o.Now = time.Now
+	}
+	heads, err := buildHeads(o.Config)
+	if err != nil {
+		return nil, err
+	}
+	d := &Daemon{opts: o, log: o.Logger, now: o.Now, cfg: o.Config, heads: heads, latest: map[string]mqtt.Reading{}}
+	// Sequence numbers start at the wall clock in microseconds, so that
+	// they keep increasing across restarts as long as the clock does and
+	// fewer than a million readings a second are made.
+	d.seq.Store(uint64(o.Now().UnixMicro()))
+	return d, nil
+}
+
+func buildHeads(cfg *config.Config) ([]*head, error) {
+	heads := make([]*head, 0, len(cfg.Heads))
+	for _, hc := range cfg.Heads {
+		h, err := newHead(cfg, hc)
+		if err != nil {
+			return nil, err
+		}
+		heads = append(heads, h)
+	}
+	return heads, nil
+}
+
+// Run polls and publishes until ctx is done, then stops the pollers,
+// flushes the publisher (bounded), publishes the offline state and
+// returns. A reload that fails keeps the running configuration.
+func (d *Daemon) Run(ctx context.Context) error {
+	// The publisher outlives the pollers: it flushes after they stop.
+	pubCtx := context.WithoutCancel(ctx)
+	stopPub, err := d.startPublisher(pubCtx)
+	if err != nil {
+		return err
+	}
+	defer func() { stopPub() }()
+	for {
+		pollCtx, stopPolling := context.WithCancel(ctx)
+		polled := make(chan error, 1)
+		go func() { polled <- d.poll(pollCtx) }()
+		select {
+		case <-ctx.Done():
+			stopPolling()
+			<-polled
+			return nil
+		case err := <-polled:
+			stopPolling()
+			return err
+		case <-d.opts.Reload:
+			stopPolling()
+			<-polled
+			if d.reload() {
+				// A new gateway or broker identity needs a new publisher.
+				stopPub()
+				if stopPub, err = d.startPublisher(pubCtx); err != nil {
+					stopPub = func() {}
+					return err
+				}
+			}
+		}
+	}
+}
+
+// reload reads the configuration again and swaps it in whole when it is
+// valid; it reports whether the publisher must be rebuilt.
+func (d *Daemon) reload() (newPublisher bool) {
+	if d.opts.Load == nil {
+		return false
+	}
+	cfg, err := d.opts.Load()
+	if err == nil {
+		var heads []*head
+		if heads, err = buildHeads(cfg); err == nil {
+			d.mu.Lock()
+			old := d.cfg
+			gone := removedHeads(old, cfg)
+			d.cfg, d.heads = cfg, heads
+			for _, name := range gone {
+				delete(d.latest, name)
+			}
+			d.mu.Unlock()
+			d.log.Info("configuration reloaded", "heads", len(heads))
+			if publisherChanged(old, cfg) {
+				return true
+			}
+			// Removed heads lose their retained info; the others get theirs anew.
+			topics := mqttTopics(old)
+			for _, name := range gone {
+				d.pub.Publish(mqtt.Message{Topic: topics.Info(name), Retain: true})
+			}
+			for _, m := range d.infoMessages() {
+				d.pub.Publish(m)
+			}
+			return false
+		}
+	}
+	d.log.Error("configuration reload rejected; the running configuration stays", "err", err)
+	return false
+}
+
+func removedHeads(old, cfg *config.Config) []string {
+	var gone []string
+	for _, h := range old.Heads {
+		if _, ok := cfg.Head(h.Name); !ok {
+			gone = append(gone, h.Name)
+		}
+	}
+	return gone
+}
+
+func publisherChanged(old, cfg *config.Config) bool {
+	return old.Gateway != cfg.Gateway || old.MQTT.Root != cfg.MQTT.Root ||
+		old.MQTT.ClientID != cfg.MQTT.ClientID || old.MQTT.Username != cfg.MQTT.Username ||
+		old.MQTT.Queue != cfg.MQTT.Queue || !slices.Equal(old.MQTT.Brokers, cfg.MQTT.Brokers)
+}
+
+func mqttTopics(cfg *config.Config) mqtt.Topics {
+	return mqtt.Topics{Root: cfg.MQTT.Root, Gateway: cfg.Gateway}
+}
+
+// startPublisher creates the publisher for the current configuration and
+// runs it; stop cancels it and returns once it has flushed and stopped.
+func (d *Daemon) startPublisher(parent context.Context) (stop func(), err error) {
+	d.mu.Lock()
+	cfg := d.cfg
+	d.mu.Unlock()
+	brokers := cfg.MQTT.Brokers
+	if len(d.opts.Brokers) > 0 {
+		brokers = d.opts.Brokers
+	}
+	if len(brokers) == 0 {
+		return nil, errors.New("no MQTT broker configured (mqtt.brokers or -broker)")
+	}
+	clientID := cfg.MQTT.ClientID
+	if clientID == "" {
+		clientID = "glowgate-" + cfg.Gateway
+	}
+	pub, err := mqtt.NewPublisher(mqtt.Options{
+		Brokers:        brokers,
+		ClientID:       clientID,
+		Username:       cfg.MQTT.Username,
+		KeepAlive:      cfg.MQTT.KeepAlive,
+		ConnectTimeout: cfg.MQTT.ConnectTimeout,
+		QueueSize:      cfg.MQTT.Queue,
+		StateTopic:     mqttTopics(cfg).State(),
+		Online:         []byte("online"),
+		Offline:        []byte("offline"),
+		OnConnect:      d.infoMessages,
+		FlushTimeout:   5 * time.Second,
+		Logger:         d.log.With("part", "mqtt"),
+	})
+	if err != nil {
+		return nil, fmt.Errorf("mqtt publisher: %w", err)
+	}
+	d.mu.Lock()
+	d.pub = pub
+	d.mu.Unlock()
+	ctx, cancel := context.WithCancel(parent)
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		if err := pub.Run(ctx); err != nil {
+			d.log.Error("mqtt publisher stopped", "err", err)
+		}
+	}()
+	return func() {
+		cancel()
+		<-done
+	}, nil
+}
+
+// infoMessages are the retained info payloads of the current heads.
+func (d *Daemon) infoMessages() []mqtt.Message {
+	d.mu.Lock()
+	defer d.mu.Unlock()
+	topics := mqttTopics(d.cfg)
+	msgs := make([]mqtt.Message, 0, len(d.heads))
+	for _, h := range d.heads {
+		msgs = append(msgs, mqtt.Message{Topic: topics.Info(h.cfg.Name), Payload: h.infoPayload(d.opts.Version), Retain: true})
+	}
+	return msgs
+}
+
+// poll runs one line owner per endpoint until ctx is done.
+func (d *Daemon) poll(ctx context.Context) error {
+	d.mu.Lock()
+	cfg, heads, pub := d.cfg, d.heads, d.pub
+	d.mu.Unlock()
+	topics := mqttTopics(cfg)
+	g, ctx := errgroup.WithContext(ctx)
+	for _, ep := range cfg.Endpoints {
+		var mine []*head
+		for _, h := range heads {
+			if h.endpoint == ep.Name {
+				mine = append(mine, h)
+			}
+		}
+		if len(mine) == 0 {
+			continue
+		}
+		polls := make([]modbus.Poll, len(mine))
+		topicOf := make([]string, len(mine))
+		for i, h := range mine {
+			polls[i] = h.poll()
+			topicOf[i] = topics.Reading(h.cfg.Name)
+		}
+		signals := make([]float64, 0, 8)
+		deliver := func(res modbus.Result) {
+			h := mine[res.Poll]
+			var r mqtt.Reading
+			if res.Err != nil {
+				r = h.failed(res.Time, res.Err)
+			} else {
+				signals = h.decode(res.Registers, signals)
+				r = h.reading(res.Time, signals)
+			}
+			d.publish(topicOf[res.Poll], pub, r)
+		}
+		line := modbus.NewLine(modbus.LineConfig{
+			Name:       ep.Name,
+			Timeout:    ep.Timeout,
+			BackoffMax: ep.BackoffMax,
+			Logger:     d.log.With("endpoint", ep.Name),
+			Now:        d.now,
+		}, modbus.NewTCPClient(ep.Address, ep.Timeout), polls, deliver)
+		g.Go(func() error {
+			if err := line.Run(ctx); err != nil && !errors.Is(err, context.Canceled) {
+				return fmt.Errorf("endpoint %s: %w", ep.Name, err)
+			}
+			return nil
+		})
+	}
+	return g.Wait()
+}
+
+// publish numbers a reading, remembers it as the head's latest and hands
+// it to the publisher without waiting.
+//
+// Numbering and queueing happen under one lock, so that the queue holds
+// the readings of all lines in sequence order.
+func (d *Daemon) publish(topic string, pub *mqtt.Publisher, r mqtt.Reading) {
+	d.seqMu.Lock()
+	r.Seq = d.seq.Add(1)
+	pub.Publish(mqtt.Message{Topic: topic, Payload: r.AppendJSON(make([]byte, 0, 640))})
+	d.seqMu.Unlock()
+	d.mu.Lock()
+	d.latest[r.Head] = r
+	d.mu.Unlock()
+}
+
+// Latest returns the most recent reading of every head, by head name.
+func (d *Daemon) Latest() []mqtt.Reading {
+	d.mu.Lock()
+	defer d.mu.Unlock()
+	out := make([]mqtt.Reading, 0, len(d.latest))
+	for _, r := range d.latest {
+		out = append(out, r)
+	}
+	slices.SortFunc(out, func(a, b mqtt.Reading) int { return strings.Compare(a.Head, b.Head) })
+	return out
+}
+
+// PublisherStats reports the publisher's counters.
+func (d *Daemon) PublisherStats() mqtt.Stats {
+	d.mu.Lock()
+	pub := d.pub
+	d.mu.Unlock()
+	if pub == nil {
+		return mqtt.Stats{}
+	}
+	return pub.Stats()
+}

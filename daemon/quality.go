@@ -1,0 +1,74 @@
+package daemon
+
+import (
+	"errors"
+	"math"
+
+	"glowgate/bus/modbus"
+	"glowgate/convert"
+)
+
+// OPC UA status codes a reading can carry (OPC UA Part 4 / Part 8; the
+// numbers are those of OPCFoundation/UA-Nodeset Schema/StatusCode.csv).
+const (
+	statusGood                              uint32 = 0x00000000
+	statusBadCommunicationError             uint32 = 0x80050000
+	statusBadTimeout                        uint32 = 0x800A0000
+	statusBadNoCommunication                uint32 = 0x80310000
+	statusBadOutOfRange                     uint32 = 0x803C0000
+	statusBadConfigurationError             uint32 = 0x80890000
+	statusBadNotConnected                   uint32 = 0x808A0000
+	statusBadDeviceFailure                  uint32 = 0x808B0000
+	statusBadSensorFailure                  uint32 = 0x808C0000
+	statusUncertainSensorNotAccurate        uint32 = 0x40930000
+	statusUncertainEngineeringUnitsExceeded uint32 = 0x40940000
+)
+
+// conversionQuality grades a conversion result:
+//
+//	no usable signal (zero, negative, NaN, Inf)   bad        BadSensorFailure
+//	no root inside the solver bracket             bad        BadOutOfRange
+//	temperature outside the measuring range       uncertain  UncertainEngineeringUnitsExceeded
+//	a channel's signal fraction below the limit   uncertain  UncertainSensorNotAccurate
+//	otherwise                                     good       Good
+func conversionQuality(res convert.Result) (quality string, status uint32) {
+	switch {
+	case res.Flags&convert.NoSignal != 0:
+		return "bad", statusBadSensorFailure
+	case math.IsNaN(res.Temperature):
+		return "bad", statusBadOutOfRange
+	case res.Flags&(convert.BelowRange|convert.AboveRange) != 0:
+		return "uncertain", statusUncertainEngineeringUnitsExceeded
+	case res.Flags&convert.LowSignal != 0:
+		return "uncertain", statusUncertainSensorNotAccurate
+	}
+	return "good", statusGood
+}
+
+// commStatus maps a failed poll to its status code. Modbus exceptions
+// 01-03 say the register map does not fit the head (a configuration
+// fault); 04 is the device's own failure; 0A and 0B are a gateway's path
+// and target failures.
+func commStatus(err error) uint32 {
+	var exc *modbus.ExceptionError
+	if errors.As(err, &exc) {
+		switch exc.Code {
+		case 0x01, 0x02, 0x03:
+			return statusBadConfigurationError
+		case 0x04:
+			return statusBadDeviceFailure
+		case 0x0A:
+			return statusBadNotConnected
+		case 0x0B:
+			return statusBadNoCommunication
+		}
+		return statusBadCommunicationError
+	}
+	switch modbus.Kind(err) {
+	case modbus.KindTimeout:
+		return statusBadTimeout
+	case modbus.KindConnection:
+		return statusBadNotConnected
+	}
+	return statusBadCommunicationError
+}
