@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"glowgate/bus/modbus"
+	"glowgate/bus/modbus/modbustest"
 	"glowgate/convert"
 )
 
@@ -175,10 +176,7 @@ func pymodbusRead(t *testing.T, addr string, unit uint8, table modbus.Table, sta
 // the documented exception for an unknown unit.
 func TestServerWithPymodbus(t *testing.T) {
 	if err := exec.Command("/usr/bin/python3", "-c", "import pymodbus.client").Run(); err != nil {
-		if os.Getenv("GLOWGATE_REQUIRE_REAL") == "1" {
-			t.Fatalf("python3-pymodbus is required (GLOWGATE_REQUIRE_REAL=1): %v", err)
-		}
-		t.Skipf("Debian's python3-pymodbus is not available: %v", err)
+		modbustest.RequireReal(t, "Debian's python3-pymodbus is not available: %v", err)
 	}
 	clk := newTestClock()
 	caster, kiln := casterScenario(t), kilnHead(t)
