@@ -20,17 +20,46 @@ const (
 	// NoSignal: a channel signal is zero, negative, NaN or infinite, so
 	// there is no ratio temperature.
 	NoSignal
+	// Saturated: a channel signal is at or above its saturation level, so
+	// the channel cannot be trusted and no temperature rests on it.
+	Saturated
+	// Nongrey: the spread of the pair temperatures (three or more
+	// channels) is above its limit: the target is not grey.
+	Nongrey
+	// Obstructed: over the rolling window the signal fractions fell while
+	// the ratio temperature held steady: a neutral loss in the sight path
+	// (dirty window, grey smoke, partial fill of the field of view).
+	Obstructed
+	// SelectiveLoss: over the rolling window the ratio temperature moved
+	// with ln f: a spectrally selective loss (steam, fine dust) biases it.
+	SelectiveLoss
+	// ReflectionSuspected: a signal fraction is well above 1: radiation
+	// from hotter surroundings is reflected into the field of view.
+	ReflectionSuspected
+	// Held: the published temperature is the last valid one, held for a
+	// bounded time while the signal is low.
+	Held
 )
 
-// Names returns the names of the set flags in bit order: "low_signal",
-// "below_range", "above_range", "no_signal". Unknown bits are ignored. It
-// returns nil when no flag is set.
+// numFlags is the number of defined flags.
+const numFlags = 10
+
+// flagNames returns the names of the flags, in bit order.
+func flagNames() [numFlags]string {
+	return [numFlags]string{
+		"low_signal", "below_range", "above_range", "no_signal", "saturated",
+		"nongrey", "obstructed", "selective_loss", "reflection_suspected", "held",
+	}
+}
+
+// Names returns the names of the set flags in bit order (see flagNames).
+// Unknown bits are ignored. It returns nil when no flag is set.
 func (f Flags) Names() []string { return f.AppendNames(nil) }
 
 // AppendNames appends the names of the set flags, in bit order, to dst and
 // returns the extended slice. It does not allocate when dst has room.
 func (f Flags) AppendNames(dst []string) []string {
-	for i, n := range [...]string{"low_signal", "below_range", "above_range", "no_signal"} {
+	for i, n := range flagNames() {
 		if f&(1<<i) != 0 {
 			dst = append(dst, n)
 		}
@@ -40,7 +69,7 @@ func (f Flags) AppendNames(dst []string) []string {
 
 // String returns the flag names joined by "|", or "ok" when none is set.
 func (f Flags) String() string {
-	var buf [4]string
+	var buf [numFlags]string
 	n := f.AppendNames(buf[:0])
 	if len(n) == 0 {
 		return "ok"
