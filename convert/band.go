@@ -156,15 +156,41 @@ func ruleMinT(n int, m, h, c2 float64) float64 {
 	return math.Max(tExp, tPole)
 }
 
-// rule returns the cheapest rule valid at t (the largest one below the
-// floor of the ladder).
-func (b *Band) rule(t float64) *bandRule {
-	for i := range b.rules {
-		if t >= b.rules[i].tMin {
-			return &b.rules[i]
+// ruleAt returns the cheapest rule of a ladder (ascending node count,
+// descending tMin) valid at t, or the ladder's last rule below its floor.
+func ruleAt(rules []bandRule, t float64) *bandRule {
+	for i := range rules {
+		if t >= rules[i].tMin {
+			return &rules[i]
 		}
 	}
-	return &b.rules[len(b.rules)-1]
+	return &rules[len(rules)-1]
+}
+
+// signalDeriv evaluates the rule at 1/t = it (t > 0 and finite):
+//
+//	x_j = X_j/T,  S = Σ W_j / (e^{x_j} − 1),
+//	dS/dT = (1/T) Σ W_j x_j e^{x_j} / (e^{x_j} − 1)²
+//
+// (the derivative of Planck's law, ∂L/∂T = L·(x/T)·e^x/(e^x − 1)). For
+// x ≥ 0.5 the denominator is formed as exp(x) − 1, which is then within
+// 3 ulp of expm1(x); below it math.Expm1 is used.
+func (r *bandRule) signalDeriv(it float64) (s, ds float64) {
+	w := r.w[:len(r.x)]
+	for j, xj := range r.x {
+		x := xj * it
+		var d float64
+		if x >= 0.5 {
+			d = math.Exp(x) - 1
+		} else {
+			d = math.Expm1(x)
+		}
+		inv := 1 / d
+		s += w[j] * inv
+		// e^x/d² = (d+1)/d² = inv(1 + inv); finite when e^x overflows.
+		ds += w[j] * x * inv * (1 + inv)
+	}
+	return s, ds * it
 }
 
 // Lo returns the lower band edge, m.
@@ -207,21 +233,5 @@ func (b *Band) SignalDeriv(t float64) (s, ds float64) {
 	if math.IsInf(t, 1) {
 		return math.Inf(1), math.Inf(1)
 	}
-	r := b.rule(t)
-	it := 1 / t
-	w := r.w[:len(r.x)]
-	for j, xj := range r.x {
-		x := xj * it
-		var d float64
-		if x >= 0.5 {
-			d = math.Exp(x) - 1
-		} else {
-			d = math.Expm1(x)
-		}
-		inv := 1 / d
-		s += w[j] * inv
-		// e^x/d² = (d+1)/d² = inv(1 + inv); finite when e^x overflows.
-		ds += w[j] * x * inv * (1 + inv)
-	}
-	return s, ds * it
+	return ruleAt(b.rules, t).signalDeriv(1 / t)
 }

@@ -18,13 +18,17 @@ const (
 	// with Temperature NaN, above the solver bracket).
 	AboveRange
 	// NoSignal: a channel signal is zero, negative, NaN or infinite, so
-	// there is no ratio temperature.
+	// no temperature rests on that channel (with two channels: there is no
+	// ratio temperature; with more, the published temperature is NaN when
+	// its pair uses the channel or the fit is published).
 	NoSignal
 	// Saturated: a channel signal is at or above its saturation level, so
-	// the channel cannot be trusted and no temperature rests on it.
+	// the channel cannot be trusted and no temperature rests on it (as for
+	// NoSignal).
 	Saturated
 	// Nongrey: the spread of the pair temperatures (three or more
-	// channels) is above its limit: the target is not grey.
+	// channels) is above its limit: the target is not grey, and every pair
+	// temperature is biased by its own emissivity ratio.
 	Nongrey
 	// Obstructed: over the rolling window the signal fractions fell while
 	// the ratio temperature held steady: a neutral loss in the sight path

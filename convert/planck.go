@@ -1,6 +1,10 @@
 package convert
 
-import "math"
+import (
+	"fmt"
+	"math"
+	"strings"
+)
 
 // Radiation constants.
 const (
@@ -20,6 +24,20 @@ const (
 	// significant digits).
 	C1L = 1.191042972e-16
 )
+
+// C2ByName returns the second radiation constant, m·K, that name stands
+// for: "its90" for C2ITS90 (the default of glowgate, Preston-Thomas 1990)
+// and "codata2018" (alias "codata") for C2CODATA2018. Case does not matter.
+// Use the same value when a calibration is fitted and when it is inverted.
+func C2ByName(name string) (float64, error) {
+	switch strings.ToLower(name) {
+	case "its90":
+		return C2ITS90, nil
+	case "codata2018", "codata":
+		return C2CODATA2018, nil
+	}
+	return 0, fmt.Errorf("convert: c2 name %q: want its90, codata2018 or codata", name)
+}
 
 // Planck returns the blackbody spectral radiance per unit wavelength,
 //

@@ -7,8 +7,12 @@ import (
 	"gonum.org/v1/gonum/integrate/quad"
 )
 
-// sigmaSB is the Stefan–Boltzmann constant, W·m⁻²·K⁻⁴ (CODATA 2018).
-const sigmaSB = 5.670374419e-8
+// Constants of the tests (CODATA 2018; TestConstantsMatchScipy checks
+// them against scipy.constants).
+const (
+	sigmaSB = 5.670374419e-8 // Stefan–Boltzmann constant, W·m⁻²·K⁻⁴
+	wienB   = 2.897771955e-3 // Wien displacement constant, m·K
+)
 
 // planckPeak returns the wavelength of the maximum of L(λ, T) by golden-
 // section search on Planck itself.
@@ -31,8 +35,8 @@ func TestPlanckPeak(t *testing.T) {
 		lm := planckPeak(temp, C2CODATA2018)
 		// Wien displacement b = 2.897771955e-3 m·K (CODATA 2018), with the
 		// CODATA c2 since b = c2/4.965114231744276.
-		if got := lm * temp * 1e6; math.Abs(got-2897.771955) > 0.01 {
-			t.Errorf("T=%g K: peak at λT = %.6f µm·K, want 2897.771955 (CODATA 2018 Wien b)", temp, got)
+		if got := lm * temp; math.Abs(got-wienB) > 0.01e-6 {
+			t.Errorf("T=%g K: peak at λT = %.6f µm·K, want %.6f (CODATA 2018 Wien b)", temp, got*1e6, wienB*1e6)
 		}
 		// Peak L/(σT⁵) ≈ 0.722318e-4 (µm·K·sr)⁻¹ (Incropera & DeWitt,
 		// blackbody radiation functions table). That table was made with

@@ -86,8 +86,9 @@ func TestSaundersWhiteApproximation(t *testing.T) {
 	// standard deviation σ, A ≈ λ0(1 − 6σ²/λ0²), B ≈ c2σ²/(2λ0²). With C
 	// matched at 1350 °C, the curve reproduces the band integral (checked
 	// against scipy in TestBandMatchesScipy) over 700–2000 °C: stated
-	// tolerance 0.01 K in temperature for these 50 nm bands.
-	for _, bd := range [][2]float64{{shortLo, shortHi}, {longLo, longHi}} {
+	// tolerance 5 mK for the 0.9 µm band and 10 mK for the 1.05 µm band
+	// (worst seen 4.5 mK and 5.5 mK with C matched at 1350 °C).
+	for _, bd := range [][3]float64{{shortLo, shortHi, 0.005}, {longLo, longHi, 0.01}} {
 		b := mustBand(t, bd[0], bd[1])
 		m, err := b.SakumaHattori(1623.15)
 		if err != nil {
@@ -96,12 +97,12 @@ func TestSaundersWhiteApproximation(t *testing.T) {
 		worst := 0.0
 		for _, temp := range celsiusRange(700, 2000, 5) {
 			d := m.Inverse(b.Signal(temp)) - temp
-			if math.Abs(d) > 0.01 || math.IsNaN(d) {
-				t.Errorf("band %v at %.2f K: Saunders–White curve off by %.4f K (> 0.01 K)", bd, temp, d)
+			if !(math.Abs(d) <= bd[2]) {
+				t.Errorf("band %v at %.2f K: Saunders–White curve off by %.4f K (> %g K)", bd[:2], temp, d, bd[2])
 			}
 			worst = math.Max(worst, math.Abs(d))
 		}
-		t.Logf("band %v: Saunders–White A %.6g m, B %.6g m·K, worst %.2g K", bd, m.A, m.B, worst)
+		t.Logf("band %v: Saunders–White A %.6g m, B %.6g m·K, worst %.2g K", bd[:2], m.A, m.B, worst)
 	}
 	if _, err := mustBand(t, shortLo, shortHi).SakumaHattori(0); err == nil {
 		t.Error("reference temperature 0: no error")
