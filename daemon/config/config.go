@@ -14,7 +14,9 @@ import (
 type Config struct {
 	File      string // name the config was loaded from, as given
 	Gateway   string
-	Unit      string // "degC" or "K": the unit readings are published in
+	Unit      string  // "degC" or "K": the unit readings are published in
+	C2        float64 // second radiation constant of every channel model, m·K
+	C2Name    string  // "its90" (default) or "codata2018"
 	MQTT      MQTT
 	Endpoints []Endpoint
 	Heads     []Head
@@ -49,20 +51,33 @@ type Head struct {
 	Period          time.Duration
 	RangeMin        float64 // measuring range, K
 	RangeMax        float64 // K
-	EmissivityRatio float64 // k = ε(short channel) / ε(long channel)
-	LowSignal       float64 // signal-fraction limit of the low_signal flag, fraction
-	Description     string
-	Channels        []Channel // exactly 2, short wavelength first
-	Sim             Sim
+	EmissivityRatio float64 // k = ε(short channel) / ε(long channel) of the published pair
+	// Emissivity is the relative emissivity per channel: a pair (i, j)
+	// uses k = Emissivity[i]/Emissivity[j]. For two channels it is
+	// [emissivity_ratio, 1].
+	Emissivity   []float64
+	LowSignal    float64 // signal-fraction limit of the low_signal flag, fraction
+	Description  string
+	Channels     []Channel // 2 to 8, short wavelength first
+	Publish      Publish   // which temperature is published
+	NongreyLimit float64   // K: spread of the pair temperatures that flags nongrey
+	FitTerms     int       // emissivity parameters of the multi-colour fit: 1 or 2
+	Processing   Processing
+	Loss         Loss
+	Uncertainty  Uncertainty
+	Sim          Sim
 }
 
 // Channel is one spectral channel of a head: its blackbody response model
-// (exactly one of Band and SakumaHattori is set) and where its signal is
-// read.
+// (one of Band, SakumaHattori and Responsivity; a Calibration table comes
+// with the SakumaHattori fitted to it) and where its signal is read.
 type Channel struct {
 	Name          string
 	Band          *Band
-	SakumaHattori *SakumaHattori
+	SakumaHattori *SakumaHattori // given, or fitted to Calibration
+	Responsivity  *Responsivity
+	Calibration   *Calibration // when set, SakumaHattori holds its fit
+	Saturation    float64      // signal at or above which the channel is saturated; 0: none
 	Signal        Signal
 }
 
@@ -188,8 +203,28 @@ func (c Channel) Wavelength() float64 {
 		return (c.Band.From + c.Band.To) / 2
 	case c.SakumaHattori != nil:
 		return c.SakumaHattori.A
+	case c.Responsivity != nil:
+		return c.Responsivity.Centroid()
 	}
 	return 0
+}
+
+// Centroid is the responsivity-weighted mean wavelength ∫R·λ dλ / ∫R dλ of
+// the piecewise-linear table, in metres; 0 for an empty table.
+func (r *Responsivity) Centroid() float64 {
+	var num, den float64
+	for i := 1; i < len(r.Wavelengths); i++ {
+		l0, l1 := r.Wavelengths[i-1], r.Wavelengths[i]
+		r0, r1 := r.Values[i-1], r.Values[i]
+		h := l1 - l0
+		den += h * (r0 + r1) / 2
+		// ∫ (r0 + (r1−r0)·s) (l0 + h·s) h ds over s in [0, 1]
+		num += h * (r0*l0 + (r0*h+(r1-r0)*l0)/2 + (r1-r0)*h/3)
+	}
+	if den <= 0 {
+		return 0
+	}
+	return num / den
 }
 
 // Registers is the number of 16-bit registers the signal occupies: 1 for

@@ -215,6 +215,8 @@ func TestDefaults(t *testing.T) {
 		File:    "minimal.yaml",
 		Gateway: "gw",
 		Unit:    "degC",
+		C2:      0.014388, // ITS-90 (Preston-Thomas, Metrologia 27, 3, 1990)
+		C2Name:  "its90",
 		MQTT: MQTT{
 			Root:           "glowgate",
 			ClientID:       "glowgate-gw",
@@ -232,11 +234,17 @@ func TestDefaults(t *testing.T) {
 			RangeMin:        celsius(700),
 			RangeMax:        celsius(1600),
 			EmissivityRatio: 1,
+			Emissivity:      []float64{1, 1},
 			LowSignal:       0.02,
 			Channels: []Channel{
 				{Name: "a", Band: &Band{0.875e-6, 0.925e-6}, Signal: Signal{Address: 0, Type: "float32", WordOrder: "high_first", ByteOrder: "big", Scale: 1}},
 				{Name: "b", Band: &Band{1.025e-6, 1.075e-6}, Signal: Signal{Address: 2, Type: "float32", WordOrder: "high_first", ByteOrder: "big", Scale: 1}},
 			},
+			Publish:      Publish{Kind: "pair", I: 0, J: 1},
+			NongreyLimit: 10,
+			FitTerms:     1,
+			Processing:   Processing{Hold: "none"},
+			Loss:         Loss{Window: 10 * time.Second, Drop: 0.3, Significance: 0.01, Steady: 2, Reflection: 1.2},
 			Sim: Sim{
 				Seed:         seedOf("h1"),
 				Emissivity:   []float64{1, 1},
@@ -353,7 +361,7 @@ heads:
 `
 	// templates is no schema key: the merge works, the extra key is refused.
 	_, err := Parse("aliases.yaml", []byte(doc))
-	if err == nil || err.Error() != "aliases.yaml:4: templates: unknown key (want gateway, unit, mqtt, endpoints or heads)" {
+	if err == nil || err.Error() != "aliases.yaml:4: templates: unknown key (want gateway, unit, c2, mqtt, endpoints or heads)" {
 		t.Fatalf("got %v", err)
 	}
 	const ok = `
@@ -510,5 +518,33 @@ func TestSignalRegisters(t *testing.T) {
 	}
 	if (Channel{}).Wavelength() != 0 {
 		t.Error("a channel without a model has a wavelength")
+	}
+}
+
+// TestKilnExample: configs/kiln.yaml's channel models come out as meant. The
+// calibration table (ideal 0.85-0.95 um band points, configs/kiln_values.py,
+// scipy.integrate.quad) fits a Sakuma–Hattori curve whose A lies near the
+// Saunders & White value λ0(1 − 6σ²/λ0²) = 0.89444 um (Metrologia 40, 195,
+// 2003; σ² = (0.1 um)²/12 for a rectangular band); the triangular
+// responsivity's centroid is its peak, 1.05 um (symmetry).
+func TestKilnExample(t *testing.T) {
+	cfg, err := Load("../../configs/kiln.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	exit, ok := cfg.Head("kiln-exit")
+	if !ok {
+		t.Fatal("no kiln-exit head")
+	}
+	sh := exit.Channels[0].SakumaHattori
+	if sh == nil || math.Abs(sh.A/0.89444e-6-1) > 2e-3 {
+		t.Errorf("calibrated short channel: %+v, want A near 0.89444um", sh)
+	}
+	if c := exit.Channels[1].Wavelength(); math.Abs(c-1.05e-6) > 1e-15 {
+		t.Errorf("responsivity centroid %g m, want 1.05e-6", c)
+	}
+	zone, _ := cfg.Head("burning-zone")
+	if zone.Publish != (Publish{Kind: "outer", I: 0, J: 2}) || zone.FitTerms != 2 || zone.NongreyLimit != 8 {
+		t.Errorf("burning-zone settings: %+v %d %g", zone.Publish, zone.FitTerms, zone.NongreyLimit)
 	}
 }

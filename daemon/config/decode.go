@@ -13,6 +13,8 @@ import (
 	"unicode"
 
 	"gopkg.in/yaml.v3"
+
+	"glowgate/convert"
 )
 
 // Defaults, in one place.
@@ -30,7 +32,6 @@ const (
 	defaultPeriod         = time.Second
 	minPeriod             = time.Millisecond
 	defaultLowSignal      = 0.02
-	channelCount          = 2
 
 	// The optical range radiation thermometers work in; a wavelength
 	// outside it is a unit slip ("0.9m" for "0.9um").
@@ -50,7 +51,7 @@ func (d *decoder) config(root val) *Config {
 			Queue:          defaultQueue,
 		},
 	}
-	f := d.fields(root, "gateway", "unit", "mqtt", "endpoints", "heads")
+	f := d.fields(root, "gateway", "unit", "c2", "mqtt", "endpoints", "heads")
 	if v := f.required("gateway"); v.n != nil {
 		if s, ok := d.str(v); ok && d.topicLevel(v, s, false) {
 			c.Gateway = s
@@ -66,6 +67,20 @@ func (d *decoder) config(root val) *Config {
 			}
 		}
 	}
+	// The second radiation constant of every channel model (PHYSICS.md):
+	// ITS-90's 0.014388 m·K by default, or CODATA 2018's hc/k.
+	c.C2Name, c.C2 = "its90", convert.C2ITS90
+	if v := f.get("c2"); v.n != nil {
+		if s, ok := d.choice(v, "c2", "its90", "codata2018"); ok {
+			x, err := convert.C2ByName(s)
+			if err != nil {
+				d.errorf(v, "%v", err)
+			} else {
+				c.C2Name, c.C2 = s, x
+			}
+		}
+	}
+	d.c2 = c.C2
 	d.mqtt(f.get("mqtt"), &c.MQTT)
 	for _, it := range d.list(f.get("endpoints")) {
 		c.Endpoints = append(c.Endpoints, d.endpoint(it))
@@ -206,7 +221,8 @@ func (d *decoder) head(v val) Head {
 		return h
 	}
 	f := d.fields(v, "name", "endpoint", "unit_id", "registers", "period", "range",
-		"emissivity_ratio", "low_signal", "description", "channels", "sim")
+		"emissivity_ratio", "emissivity", "low_signal", "description", "channels",
+		"publish", "nongrey_limit", "fit_terms", "processing", "loss", "uncertainty", "sim")
 	if v := f.required("name"); v.n != nil {
 		if s, ok := d.str(v); ok && d.topicLevel(v, s, false) {
 			h.Name = s
@@ -260,15 +276,6 @@ func (d *decoder) head(v val) Head {
 			}
 		}
 	}
-	if v := f.get("emissivity_ratio"); v.n != nil {
-		if x, ok := d.number(v); ok {
-			if x <= 0 {
-				d.errorf(v, "must be positive")
-			} else {
-				h.EmissivityRatio = x
-			}
-		}
-	}
 	if v := f.get("low_signal"); v.n != nil {
 		if x, ok := d.fraction(v); ok {
 			if x < 0 || x >= 1 {
@@ -288,9 +295,10 @@ func (d *decoder) head(v val) Head {
 	for _, it := range items {
 		h.Channels = append(h.Channels, d.channel(it))
 	}
-	if chv.n != nil && chv.n.Kind == yaml.SequenceNode && len(items) != channelCount {
-		d.errorf(chv, "want exactly %d channels, have %d", channelCount, len(items))
+	if chv.n != nil && chv.n.Kind == yaml.SequenceNode && (len(items) < 2 || len(items) > maxChannels) {
+		d.errorf(chv, "want 2 to %d channels, have %d", maxChannels, len(items))
 	}
+	d.radiometry(f, &h)
 	d.sim(f.get("sim"), &h)
 	return h
 }
@@ -301,7 +309,7 @@ func (d *decoder) channel(v val) Channel {
 		d.errorf(v, "empty entry (want a channel mapping)")
 		return ch
 	}
-	f := d.fields(v, "name", "band", "sakuma_hattori", "signal")
+	f := d.fields(v, "name", "band", "sakuma_hattori", "responsivity", "calibration", "saturation", "signal")
 	if v := f.required("name"); v.n != nil {
 		if s, ok := d.str(v); ok {
 			if s == "" {
@@ -311,16 +319,40 @@ func (d *decoder) channel(v val) Channel {
 			}
 		}
 	}
-	band, sh := f.get("band"), f.get("sakuma_hattori")
+	var models []string
+	for _, k := range []string{"band", "sakuma_hattori", "responsivity", "calibration"} {
+		if f.get(k).n != nil {
+			models = append(models, k)
+		}
+	}
 	switch {
-	case band.n != nil && sh.n != nil:
-		d.errorf(v, "has both band and sakuma_hattori (want exactly one)")
-	case band.n != nil:
-		ch.Band = d.band(band)
-	case sh.n != nil:
-		ch.SakumaHattori = d.sakumaHattori(sh)
-	case f.ok:
-		d.errorf(v, "needs band or sakuma_hattori")
+	case len(models) > 1:
+		d.errorf(v, "has both %s and %s (want exactly one of band, sakuma_hattori, responsivity or calibration)", models[0], models[1])
+	case len(models) == 0:
+		if f.ok {
+			d.errorf(v, "needs band, sakuma_hattori, responsivity or calibration")
+		}
+	case models[0] == "band":
+		ch.Band = d.band(f.get("band"))
+	case models[0] == "sakuma_hattori":
+		ch.SakumaHattori = d.sakumaHattori(f.get("sakuma_hattori"))
+	case models[0] == "responsivity":
+		ch.Responsivity = d.responsivity(f.get("responsivity"))
+	case models[0] == "calibration":
+		cv := f.get("calibration")
+		ch.Calibration = d.calibration(cv)
+		if !d.failed[cv.path] {
+			ch.SakumaHattori = d.fitCalibration(cv, ch.Calibration)
+		}
+	}
+	if v := f.get("saturation"); v.n != nil {
+		if x, ok := d.number(v); ok {
+			if x <= 0 {
+				d.errorf(v, "must be positive")
+			} else {
+				ch.Saturation = x
+			}
+		}
 	}
 	if v := f.required("signal"); v.n != nil {
 		ch.Signal = d.signal(v)

@@ -24,6 +24,7 @@ type decoder struct {
 	lines  map[string]int  // field path -> line where it is written
 	failed map[string]bool // paths with a problem, and all their ancestors
 	work   int             // mapping entries and list items visited, bounded by maxWork
+	c2     float64         // the configuration's second radiation constant, m·K
 }
 
 // maxWork bounds the entries and items the decoder visits. Aliases let a

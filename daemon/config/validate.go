@@ -46,7 +46,7 @@ func (d *decoder) validate(c *Config) {
 				d.errorAt(d.line(p), p, "unknown endpoint %q (%s)", h.Endpoint, known(c.Endpoints))
 			}
 		}
-		if !d.failed[join(hp, "channels")] && len(h.Channels) == channelCount {
+		if !d.failed[join(hp, "channels")] && len(h.Channels) >= 2 && len(h.Channels) <= maxChannels {
 			d.channels(c, h, hp)
 		}
 	}
