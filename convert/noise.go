@@ -138,6 +138,21 @@ func (e *NoiseEstimator) pairIndex(i, j int) int { return i*(2*e.ch-i-1)/2 + j -
 // before the previous one is a clock step: the window is emptied and this
 // observation becomes the first.
 func (e *NoiseEstimator) Observe(t time.Time, signals []float64) {
+	var ln [MaxChannels]float64
+	for i := range e.ch {
+		ln[i] = math.NaN()
+		if i < len(signals) {
+			if s := signals[i]; s > 0 && !math.IsInf(s, 1) {
+				ln[i] = math.Log(s)
+			}
+		}
+	}
+	e.observeLn(t, ln[:e.ch])
+}
+
+// observeLn is Observe given ln S per channel, NaN for an invalid signal:
+// a Chain has the logarithms from its conversion.
+func (e *NoiseEstimator) observeLn(t time.Time, lnS []float64) {
 	now, restarted := e.clock.advance(t)
 	if restarted {
 		e.clearWindow()
@@ -151,10 +166,8 @@ func (e *NoiseEstimator) Observe(t time.Time, signals []float64) {
 	got := false
 	for i := range e.ch {
 		ln := math.NaN()
-		if i < len(signals) {
-			if s := signals[i]; s > 0 && !math.IsInf(s, 1) {
-				ln = math.Log(s)
-			}
+		if i < len(lnS) {
+			ln = lnS[i]
 		}
 		e.cur[i] = math.NaN()
 		if fresh {

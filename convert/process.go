@@ -95,9 +95,11 @@ type Processor struct {
 	sum   float64
 	adds  int
 
-	filtOK bool
-	filt   float64
-	filtAt int64 // ns since the clock's origin
+	filtOK   bool
+	filt     float64
+	filtAt   int64   // ns since the clock's origin
+	gain     float64 // 1 − exp(−Δt/τ) for Δt = gainStep
+	gainStep int64   // the Δt, ns, gain was computed for (0 at first, whose gain is 0)
 
 	holdOK  bool
 	hold    float64
@@ -259,8 +261,12 @@ func (p *Processor) filter(now int64, x float64) float64 {
 	// 1 − exp(−Δt/τ) is formed with math.Exp, not math.Expm1: its absolute
 	// error stays below 1e-16, and only the absolute error of the step
 	// reaches the output.
-	dt := float64(now-p.filtAt) * 1e-9
-	p.filt += (1 - math.Exp(-dt/p.tau)) * (x - p.filt)
+	// A steady poll period repeats Δt: keep its gain.
+	if step := now - p.filtAt; step != p.gainStep {
+		p.gainStep = step
+		p.gain = 1 - math.Exp(-float64(step)*1e-9/p.tau)
+	}
+	p.filt += p.gain * (x - p.filt)
 	p.filtAt = now
 	return p.filt
 }

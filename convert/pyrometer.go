@@ -342,6 +342,7 @@ func (e *engine) convert(signals []float64, p *convParams, out *Result) {
 			s = signals[i]
 		}
 		out.Channels[i] = ChannelResult{Signal: s, Fraction: nan, Brightness: nan}
+		out.lnS[i] = nan
 		if !(s > 0) || math.IsInf(s, 1) {
 			out.Flags |= NoSignal
 			continue
@@ -352,6 +353,7 @@ func (e *engine) convert(signals []float64, p *convParams, out *Result) {
 		}
 		usable |= 1 << i
 		lnS[i] = math.Log(s)
+		out.lnS[i] = lnS[i]
 		out.Channels[i].Brightness = e.grid.brightness(e.ch[i], lnS[i])
 	}
 
@@ -438,4 +440,21 @@ func (e *engine) convert(signals []float64, p *convParams, out *Result) {
 			out.Flags |= LowSignal
 		}
 	}
+}
+
+// Sensitivity returns ∂ln(S_i,bb/S_j,bb)/∂T at t, per kelvin: how fast the
+// log ratio of channels i and j changes with temperature (PHYSICS.md:
+// ∂lnR/∂T = ∂lnS_i/∂T − ∂lnS_j/∂T). It comes from the checked tables
+// (or the models where a table is not certified); NaN for t outside the
+// solver bracket or bad indices.
+func (p *Pyrometer) Sensitivity(i, j int, t float64) float64 {
+	n := len(p.models)
+	g := p.eng.grid
+	if i < 0 || j < 0 || i >= n || j >= n || !(t >= g.lo && t <= g.hi) {
+		return math.NaN()
+	}
+	u := 1 / t
+	k := searchDesc(g.u, u)
+	// d/dT = −(1/T²)·d/du
+	return -(g.dlnSignalDu(p.eng.ch[i], k, u) - g.dlnSignalDu(p.eng.ch[j], k, u)) * u * u
 }

@@ -158,6 +158,8 @@ type Result struct {
 	NPairs  int                  // number of pairs in Pairs
 	Nongrey float64              // max − min of the finite pair temperatures, K; NaN for N < 3 or fewer than 2 finite pairs
 	Fit     FitResult            // multi-colour fit; computed for N ≥ 3 or a published fit
+
+	lnS [MaxChannels]float64 // ln of each usable channel's signal, NaN otherwise (Pyrometer only)
 }
 
 // Convert converts the short- and long-wavelength signals s1 and s2

@@ -318,3 +318,30 @@ func fixSlopes(u, ln, du []float64) {
 		}
 	}
 }
+
+// dlnSignalDu returns d ln S_bb/du at u = 1/T in node interval k: from the
+// interpolant when the table is certified, from the model otherwise.
+func (g *lnGrid) dlnSignalDu(c *chanTable, k int, u float64) float64 {
+	if !c.certified {
+		t := 1 / u
+		s, ds := c.m.SignalDeriv(t)
+		return -ds / s * t * t
+	}
+	_, d := hermite(u, g.u[k], g.u[k+1], c.ln[k], c.ln[k+1], c.du[k], c.du[k+1])
+	return d
+}
+
+// searchDesc returns k with u[k] ≥ x ≥ u[k+1] for a descending u and
+// u[0] ≥ x ≥ u[n−1] (k = n − 2 at the bottom end).
+func searchDesc(u []float64, x float64) int {
+	lo, hi := 0, len(u)-1
+	for hi-lo > 1 {
+		mid := int(uint(lo+hi) >> 1)
+		if u[mid] >= x {
+			lo = mid
+		} else {
+			hi = mid
+		}
+	}
+	return lo
+}

@@ -65,11 +65,31 @@ func RatioUncertainty(short, long Model, t float64, in UncertaintyInputs) float6
 	}
 	s1, d1 := short.SignalDeriv(t)
 	s2, d2 := long.SignalDeriv(t)
-	sens := d1/s1 - d2/s2
-	if !finite(sens) || sens == 0 {
+	return ExpandedUncertainty(d1/s1-d2/s2, in)
+}
+
+// ExpandedUncertainty is RatioUncertainty given the sensitivity
+// sens = ∂lnR/∂T (per kelvin) instead of the models, for callers that have
+// it already (Pyrometer.Sensitivity). NaN for a zero or non-finite
+// sensitivity or inputs out of their domain.
+func ExpandedUncertainty(sens float64, in UncertaintyInputs) float64 {
+	u1, u2, r := in.Noise[0], in.Noise[1], in.Correlation
+	switch {
+	case !finite(sens) || sens == 0:
+		return math.NaN()
+	case !finite(u1) || !finite(u2) || !(u1 >= 0) || !(u2 >= 0):
+		return math.NaN()
+	case !(r >= -1 && r <= 1):
+		return math.NaN()
+	case !finite(in.KRel) || !(in.KRel >= 0):
+		return math.NaN()
+	case !finite(in.Calibration) || !(in.Calibration >= 0):
 		return math.NaN()
 	}
 	du := u1 - u2
 	ur := math.Sqrt(du*du + 2*(1-r)*u1*u2 + in.KRel*in.KRel)
-	return CoverageFactor * math.Hypot(ur/math.Abs(sens), in.Calibration)
+	// Both terms are kelvins of ordinary size: no overflow to guard
+	// against, so a plain root rather than math.Hypot.
+	uT := ur / sens
+	return CoverageFactor * math.Sqrt(uT*uT+in.Calibration*in.Calibration)
 }

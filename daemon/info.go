@@ -3,7 +3,7 @@ package daemon
 import (
 	"encoding/json"
 
-	"glowgate/convert"
+	"glowgate/daemon/config"
 )
 
 // info is the retained payload of <root>/<gateway>/<head>/info: what the
@@ -22,7 +22,28 @@ type info struct {
 	LowSignal       float64       `json:"low_signal"`
 	C2              float64       `json:"c2"`
 	Channels        []infoChannel `json:"channels"`
+	Publish         string        `json:"publish"`
+	Emissivity      []float64     `json:"emissivity,omitempty"`
+	NongreyLimit    float64       `json:"nongrey_limit,omitempty"`
+	Processing      infoProcess   `json:"processing"`
+	Uncertainty     infoUncert    `json:"uncertainty"`
 	Version         string        `json:"version"`
+}
+
+type infoProcess struct {
+	AverageS       float64 `json:"average_s,omitempty"`
+	T90S           float64 `json:"t90_s,omitempty"`
+	Hold           string  `json:"hold"`
+	DecayKPerS     float64 `json:"decay_K_per_s,omitempty"`
+	ResetS         float64 `json:"reset_s,omitempty"`
+	HoldLastValidS float64 `json:"hold_last_valid_s,omitempty"`
+}
+
+type infoUncert struct {
+	Noise           any     `json:"noise"` // "estimate" or one relative value per channel
+	Correlation     float64 `json:"correlation"`
+	EmissivityRatio float64 `json:"emissivity_ratio"`
+	CalibrationK    float64 `json:"calibration_K"`
 }
 
 type infoChannel struct {
@@ -30,6 +51,14 @@ type infoChannel struct {
 	WavelengthUM  float64            `json:"wavelength_um"`
 	Band          *infoBand          `json:"band,omitempty"`
 	SakumaHattori *infoSakumaHattori `json:"sakuma_hattori,omitempty"`
+	Responsivity  *infoTable         `json:"responsivity,omitempty"`
+	Calibration   *infoTable         `json:"calibration,omitempty"` // the table the Sakuma–Hattori curve was fitted to
+	Saturation    float64            `json:"saturation,omitempty"`
+}
+
+type infoTable struct {
+	Points int    `json:"points"`
+	File   string `json:"file,omitempty"`
 }
 
 type infoBand struct {
@@ -58,8 +87,30 @@ func (h *head) infoPayload(version string) []byte {
 		RangeMax:        *h.temperature(c.RangeMax),
 		EmissivityRatio: c.EmissivityRatio,
 		LowSignal:       c.LowSignal,
-		C2:              convert.C2ITS90,
-		Version:         version,
+		C2:              h.c2,
+		Publish:         publishName(c),
+		NongreyLimit:    c.NongreyLimit,
+		Processing: infoProcess{
+			AverageS:       c.Processing.Average.Seconds(),
+			T90S:           c.Processing.T90.Seconds(),
+			Hold:           c.Processing.Hold,
+			DecayKPerS:     c.Processing.Decay,
+			ResetS:         c.Processing.Reset.Seconds(),
+			HoldLastValidS: c.Processing.HoldLastValid.Seconds(),
+		},
+		Uncertainty: infoUncert{
+			Noise:           "estimate",
+			Correlation:     c.Uncertainty.Correlation,
+			EmissivityRatio: c.Uncertainty.EmissivityRatio,
+			CalibrationK:    c.Uncertainty.Calibration,
+		},
+		Version: version,
+	}
+	if c.Uncertainty.Noise != nil {
+		in.Uncertainty.Noise = c.Uncertainty.Noise
+	}
+	if len(c.Channels) > 2 {
+		in.Emissivity = c.Emissivity
 	}
 	for _, ch := range c.Channels {
 		ic := infoChannel{Name: ch.Name, WavelengthUM: round(ch.Wavelength()*1e6, 6)}
@@ -69,6 +120,13 @@ func (h *head) infoPayload(version string) []byte {
 		if sh := ch.SakumaHattori; sh != nil {
 			ic.SakumaHattori = &infoSakumaHattori{AUM: sh.A * 1e6, BUMK: sh.B * 1e6, C: sh.C}
 		}
+		if r := ch.Responsivity; r != nil {
+			ic.Responsivity = &infoTable{Points: len(r.Wavelengths), File: r.File}
+		}
+		if cal := ch.Calibration; cal != nil {
+			ic.Calibration = &infoTable{Points: len(cal.Temperatures), File: cal.File}
+		}
+		ic.Saturation = ch.Saturation
 		in.Channels = append(in.Channels, ic)
 	}
 	b, err := json.Marshal(in)
@@ -77,4 +135,12 @@ func (h *head) infoPayload(version string) []byte {
 		panic("daemon: info payload: " + err.Error())
 	}
 	return b
+}
+
+// publishName names the published temperature as the configuration does.
+func publishName(c config.Head) string {
+	if c.Publish.Kind == "pair" {
+		return c.Channels[c.Publish.I].Name + "/" + c.Channels[c.Publish.J].Name
+	}
+	return c.Publish.Kind
 }

@@ -20,26 +20,37 @@ const (
 	statusBadNotConnected                   uint32 = 0x808A0000
 	statusBadDeviceFailure                  uint32 = 0x808B0000
 	statusBadSensorFailure                  uint32 = 0x808C0000
+	statusUncertainLastUsableValue          uint32 = 0x40900000
 	statusUncertainSensorNotAccurate        uint32 = 0x40930000
 	statusUncertainEngineeringUnitsExceeded uint32 = 0x40940000
 )
 
-// conversionQuality grades a conversion result:
+// conversionQuality grades a reading from its flags, its raw (published)
+// temperature and its processed one, first match wins:
 //
-//	no usable signal (zero, negative, NaN, Inf)   bad        BadSensorFailure
-//	no root inside the solver bracket             bad        BadOutOfRange
-//	temperature outside the measuring range       uncertain  UncertainEngineeringUnitsExceeded
-//	a channel's signal fraction below the limit   uncertain  UncertainSensorNotAccurate
-//	otherwise                                     good       Good
-func conversionQuality(res convert.Result) (quality string, status uint32) {
+//	the last valid value held in for an invalid one  uncertain  UncertainLastUsableValue
+//	no temperature, no usable signal (zero, negative,
+//	NaN, Inf)                                        bad        BadSensorFailure
+//	no temperature, a channel saturated, or no root
+//	in the solver's bracket                          bad        BadOutOfRange
+//	temperature outside the measuring range          uncertain  UncertainEngineeringUnitsExceeded
+//	low signal, selective loss, suspected reflection,
+//	a non-grey target, or a channel the published
+//	temperature does not rest on unusable            uncertain  UncertainSensorNotAccurate
+//	otherwise (an obstruction alone included: the
+//	ratio holds through a neutral loss)              good       Good
+func conversionQuality(flags convert.Flags, raw, processed float64) (quality string, status uint32) {
+	missing := math.IsNaN(raw) || math.IsNaN(processed)
 	switch {
-	case res.Flags&convert.NoSignal != 0:
+	case flags&convert.Held != 0:
+		return "uncertain", statusUncertainLastUsableValue
+	case missing && flags&convert.NoSignal != 0:
 		return "bad", statusBadSensorFailure
-	case math.IsNaN(res.Temperature):
+	case missing:
 		return "bad", statusBadOutOfRange
-	case res.Flags&(convert.BelowRange|convert.AboveRange) != 0:
+	case flags&(convert.BelowRange|convert.AboveRange) != 0:
 		return "uncertain", statusUncertainEngineeringUnitsExceeded
-	case res.Flags&convert.LowSignal != 0:
+	case flags&(convert.LowSignal|convert.SelectiveLoss|convert.ReflectionSuspected|convert.Nongrey|convert.NoSignal|convert.Saturated) != 0:
 		return "uncertain", statusUncertainSensorNotAccurate
 	}
 	return "good", statusGood

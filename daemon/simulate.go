@@ -31,7 +31,7 @@ func NewSimulator(cfg *config.Config, logger *slog.Logger) (*Simulator, error) {
 			if hc.Endpoint != ep.Name {
 				continue
 			}
-			h, err := simHead(hc)
+			h, err := simHead(cfg, hc)
 			if err != nil {
 				return nil, err
 			}
@@ -77,7 +77,7 @@ func (s *Simulator) Close() error {
 // Addresses maps each served endpoint to its listening address.
 func (s *Simulator) Addresses() map[string]string { return s.addrs }
 
-func simHead(hc config.Head) (sim.Head, error) {
+func simHead(cfg *config.Config, hc config.Head) (sim.Head, error) {
 	table, err := modbus.ParseTable(hc.Registers)
 	if err != nil {
 		return sim.Head{}, fmt.Errorf("head %s: %w", hc.Name, err)
@@ -97,7 +97,7 @@ func simHead(hc config.Head) (sim.Head, error) {
 		h.Seed = int64(f.Sum64() >> 1)
 	}
 	for i, ch := range hc.Channels {
-		m, err := channelModel(ch)
+		m, err := channelModel(cfg, ch)
 		if err != nil {
 			return sim.Head{}, fmt.Errorf("head %s channel %s: %w", hc.Name, ch.Name, err)
 		}

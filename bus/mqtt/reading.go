@@ -31,6 +31,8 @@ type Reading struct {
 	PairTemperatures []PairTemperature `json:"pair_temperatures,omitempty"`
 	Nongrey          *float64          `json:"nongrey,omitempty"`
 	FitResidual      *float64          `json:"fit_residual,omitempty"`
+	FitTemperature   *float64          `json:"fit_temperature,omitempty"`
+	EmissivitySlope  *float64          `json:"emissivity_slope,omitempty"`
 	Uncertainty      *float64          `json:"uncertainty"`
 	Quality          string            `json:"quality"`
 	StatusCode       uint32            `json:"status_code"`
@@ -72,7 +74,8 @@ func (r Reading) MarshalJSON() ([]byte, error) {
 //     0000..9999 cannot be written in RFC 3339 and is written as null;
 //   - Channels and Flags are always arrays ([] when nil);
 //   - a non-finite float is written as null, and a pointer to one counts as
-//     nil (so omitted for nongrey and fit_residual).
+//     nil (so omitted for nongrey, fit_residual, fit_temperature and
+//     emissivity_slope).
 //
 // Strings are escaped as encoding/json does by default (HTML-safe, invalid
 // UTF-8 replaced by U+FFFD). AppendJSON does not allocate when dst has room.
@@ -136,6 +139,14 @@ func (r *Reading) AppendJSON(dst []byte) []byte {
 	if finite(r.FitResidual) {
 		dst = append(dst, `,"fit_residual":`...)
 		dst = appendFloat(dst, *r.FitResidual)
+	}
+	if finite(r.FitTemperature) {
+		dst = append(dst, `,"fit_temperature":`...)
+		dst = appendFloat(dst, *r.FitTemperature)
+	}
+	if finite(r.EmissivitySlope) {
+		dst = append(dst, `,"emissivity_slope":`...)
+		dst = appendFloat(dst, *r.EmissivitySlope)
 	}
 	dst = append(dst, `,"uncertainty":`...)
 	dst = appendFloatPtr(dst, r.Uncertainty)

@@ -33,6 +33,8 @@ var commands = []command{
 	{"demo", "run broker, simulated heads and daemon on the embedded demo configuration", demoCmd},
 	{"sim", "serve simulated heads over Modbus TCP as a configuration describes", simCmd},
 	{"convert", "convert channel signals given on the command line to one reading", convertCmd},
+	{"calibrate", "fit Sakuma–Hattori curves to blackbody points and print the configuration lines", calibrateCmd},
+	{"tune-ratio", "set a head's emissivity ratio from readings against a reference thermometer", tuneCmd},
 	{"version", "print the version", versionCmd},
 }
 
@@ -96,9 +98,9 @@ func usage(w io.Writer) {
 	fmt.Fprintln(w)
 	fmt.Fprintln(w, "commands:")
 	for _, c := range commands {
-		fmt.Fprintf(w, "  %-8s %s\n", c.name, c.summary)
+		fmt.Fprintf(w, "  %-10s %s\n", c.name, c.summary)
 	}
-	fmt.Fprintln(w, "  help     print this list")
+	fmt.Fprintln(w, "  help       print this list")
 	fmt.Fprintln(w)
 	fmt.Fprintln(w, `"glowgate <command> -h" lists the flags of a command.`)
 	fmt.Fprintln(w, "exit status: 0 ok, 1 runtime failure, 2 bad usage or bad configuration")
