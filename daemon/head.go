@@ -21,17 +21,12 @@ type head struct {
 	endpoint string
 	request  modbus.Request
 	fields   []modbus.Field
-	models   []convert.Model
-	pyro     *convert.Pyrometer
+	chain    *convert.Chain
 	channels []mqtt.Channel // name and wavelength; values filled per reading
 	pairs    []string       // names of the pair temperatures, "a/b"
 	k        float64        // emissivity ratio of the published pair
 	c2       float64        // second radiation constant of the channel models, m·K
-
-	proc  *convert.Processor
-	loss  *convert.Loss
-	noise *convert.NoiseEstimator
-	res   convert.Result // scratch, reused by every reading
+	m        convert.Measurement
 }
 
 // newHead turns a validated configuration head into its runtime form.
@@ -53,16 +48,7 @@ func newHead(cfg *config.Config, h config.Head) (*head, error) {
 		models[i], fields[i], saturation[i] = m, f, ch.Saturation
 		channels[i] = mqtt.Channel{Name: ch.Name, WavelengthUM: round(m.Wavelength()*1e6, 6)}
 	}
-	pyro, err := convert.NewPyrometer(models, convert.Options{
-		Min:          h.RangeMin,
-		Max:          h.RangeMax,
-		LowSignal:    h.LowSignal,
-		Emissivity:   h.Emissivity,
-		Saturation:   saturation,
-		Publish:      selection(h.Publish),
-		NongreyLimit: h.NongreyLimit,
-		FitTerms:     h.FitTerms,
-	})
+	chain, err := convert.NewChain(chainConfig(h, models, saturation))
 	if err != nil {
 		return nil, fmt.Errorf("head %s: %w", h.Name, err)
 	}
@@ -77,8 +63,7 @@ func newHead(cfg *config.Config, h config.Head) (*head, error) {
 		endpoint: h.Endpoint,
 		request:  blockRequest(h.UnitID, table, fields),
 		fields:   fields,
-		models:   models,
-		pyro:     pyro,
+		chain:    chain,
 		channels: channels,
 		k:        h.Emissivity[h.Publish.I] / h.Emissivity[h.Publish.J],
 		c2:       c2Of(cfg),
@@ -92,18 +77,14 @@ func newHead(cfg *config.Config, h config.Head) (*head, error) {
 		}
 		hd.pairs = append(hd.pairs, name(0, n-1))
 	}
-	if err := hd.newState(); err != nil {
-		return nil, fmt.Errorf("head %s: %w", h.Name, err)
-	}
 	return hd, nil
 }
 
-// newState makes the head's processing, loss detection and noise
-// estimation, sized for its poll period.
-func (h *head) newState() error {
-	c := h.cfg
-	perWindow := func(d time.Duration) int { return int(d/c.Period) + 8 }
-	p := c.Processing
+// chainConfig maps a head's settings to its conversion chain; the rolling
+// windows are sized for the poll period.
+func chainConfig(h config.Head, models []convert.Model, saturation []float64) convert.ChainConfig {
+	perWindow := func(d time.Duration) int { return int(d/h.Period) + 8 }
+	p := h.Processing
 	hold := convert.HoldNone
 	switch p.Hold {
 	case "peak":
@@ -111,33 +92,43 @@ func (h *head) newState() error {
 	case "valley":
 		hold = convert.HoldValley
 	}
-	var err error
-	h.proc, err = convert.NewProcessor(convert.ProcessConfig{
-		Average:       p.Average,
-		T90:           p.T90,
-		Hold:          hold,
-		Decay:         p.Decay,
-		Reset:         p.Reset,
-		HoldLastValid: p.HoldLastValid,
-		MaxSamples:    perWindow(p.Average),
-	})
-	if err != nil {
-		return err
+	u := h.Uncertainty
+	return convert.ChainConfig{
+		Models: models,
+		Options: convert.Options{
+			Min:          h.RangeMin,
+			Max:          h.RangeMax,
+			LowSignal:    h.LowSignal,
+			Emissivity:   h.Emissivity,
+			Saturation:   saturation,
+			Publish:      selection(h.Publish),
+			NongreyLimit: h.NongreyLimit,
+			FitTerms:     h.FitTerms,
+		},
+		Process: convert.ProcessConfig{
+			Average:       p.Average,
+			T90:           p.T90,
+			Hold:          hold,
+			Decay:         p.Decay,
+			Reset:         p.Reset,
+			HoldLastValid: p.HoldLastValid,
+			MaxSamples:    perWindow(p.Average),
+		},
+		Loss: convert.LossConfig{
+			Window:       h.Loss.Window,
+			MaxSamples:   perWindow(h.Loss.Window),
+			Drop:         h.Loss.Drop,
+			Significance: h.Loss.Significance,
+			Steady:       h.Loss.Steady,
+			Reflection:   h.Loss.Reflection,
+		},
+		Uncertainty: convert.UncertaintyConfig{
+			Noise:       u.Noise,
+			Correlation: u.Correlation,
+			KRel:        u.EmissivityRatio,
+			Calibration: u.Calibration,
+		},
 	}
-	l := c.Loss
-	h.loss, err = convert.NewLoss(convert.LossConfig{
-		Window:       l.Window,
-		MaxSamples:   perWindow(l.Window),
-		Drop:         l.Drop,
-		Significance: l.Significance,
-		Steady:       l.Steady,
-		Reflection:   l.Reflection,
-	})
-	if err != nil {
-		return err
-	}
-	h.noise, err = convert.NewNoiseEstimator(len(c.Channels), perWindow(l.Window), l.Window)
-	return err
 }
 
 func selection(p config.Publish) convert.Selection {
@@ -223,95 +214,37 @@ func (h *head) decode(regs []uint16, dst []float64) []float64 {
 	return dst
 }
 
-// reading converts the channel signals acquired at t into a Reading: the
-// conversion, loss detection, processing, uncertainty and quality. It
-// carries state from reading to reading, so one goroutine at a time.
+// reading converts the channel signals acquired at t into a Reading. The
+// chain carries state from reading to reading, so one goroutine at a time.
 func (h *head) reading(t time.Time, signals []float64) mqtt.Reading {
-	res := &h.res
-	h.pyro.Convert(signals, res)
-	flags := res.Flags
-	var fractions [convert.MaxChannels]float64
-	for i := range res.N {
-		fractions[i] = res.Channels[i].Fraction
-	}
-	if !math.IsNaN(res.Temperature) {
-		flags |= h.loss.Observe(t, res.Temperature, fractions[:res.N])
-	}
-	h.noise.Observe(t, signals)
-
-	// A low signal makes a reading invalid when the last valid one may
-	// stand in for it; otherwise it passes, flagged.
-	valid := !math.IsNaN(res.Temperature) &&
-		(flags&convert.LowSignal == 0 || h.cfg.Processing.HoldLastValid == 0)
-	processed, held := h.proc.Step(t, res.Temperature, valid)
-	if held {
-		flags |= convert.Held
-	}
-
+	m := &h.m
+	h.chain.Step(t, signals, m)
 	r := h.base(t)
-	r.Ratio = finite(res.Ratio)
-	r.EmissivityRatio = h.k
-	r.RawTemperature = h.temperature(res.Temperature)
-	r.Temperature = h.temperature(processed)
+	r.Ratio = finite(m.Ratio)
+	r.RawTemperature = h.temperature(m.Temperature)
+	r.Temperature = h.temperature(m.Processed)
 	for i := range r.Channels {
-		c := res.Channels[i]
+		c := m.Channels[i]
 		r.Channels[i].Signal = finite(signals[i])
 		r.Channels[i].SignalFraction = finite(c.Fraction)
 		r.Channels[i].BrightnessTemperature = h.temperature(c.Brightness)
 	}
 	if len(h.pairs) > 0 {
-		r.PairTemperatures = make([]mqtt.PairTemperature, res.NPairs)
-		for i, p := range res.Pairs[:res.NPairs] {
+		r.PairTemperatures = make([]mqtt.PairTemperature, m.NPairs)
+		for i, p := range m.Pairs[:m.NPairs] {
 			r.PairTemperatures[i] = mqtt.PairTemperature{Pair: h.pairs[i], Temperature: h.temperature(p.Temperature)}
 		}
-		r.Nongrey = finite(res.Nongrey)
+		r.Nongrey = finite(m.Nongrey)
 	}
-	if res.Fit.OK {
-		r.FitTemperature = h.temperature(res.Fit.Temperature)
-		r.FitResidual = finite(res.Fit.Residual)
-		r.EmissivitySlope = finite(res.Fit.Slope)
+	if m.Fit.OK {
+		r.FitTemperature = h.temperature(m.Fit.Temperature)
+		r.FitResidual = finite(m.Fit.Residual)
+		r.EmissivitySlope = finite(m.Fit.Slope)
 	}
-	r.Uncertainty = finite(h.uncertainty(res.Temperature))
-	r.Flags = flags.AppendNames(r.Flags)
-	r.Quality, r.StatusCode = conversionQuality(flags, res.Temperature, processed)
+	r.Uncertainty = finite(round(m.Uncertainty, 3))
+	r.Flags = m.Flags.AppendNames(r.Flags)
+	r.Quality, r.StatusCode = conversionQuality(m.Flags, m.Temperature, m.Processed)
 	return r
-}
-
-// uncertainty is the expanded uncertainty (k = 2) of the published pair's
-// ratio temperature t, from the configured channel noise and correlation,
-// or from both estimated over the loss window;
-// NaN when the noise is not known yet or the fit is published (its
-// uncertainty depends on the emissivity model, which glowgate cannot
-// know).
-func (h *head) uncertainty(t float64) float64 {
-	u := h.cfg.Uncertainty
-	pub := h.cfg.Publish
-	if pub.Kind == "fit" || math.IsNaN(t) {
-		return math.NaN()
-	}
-	var noise [2]float64
-	r := u.Correlation
-	if u.Noise != nil {
-		noise = [2]float64{u.Noise[pub.I], u.Noise[pub.J]}
-	} else {
-		// Estimated noise comes with its estimated correlation.
-		var ok1, ok2, ok3 bool
-		noise[0], ok1 = h.noise.Relative(pub.I)
-		noise[1], ok2 = h.noise.Relative(pub.J)
-		r, ok3 = h.noise.Correlation(pub.I, pub.J)
-		if !ok1 || !ok2 {
-			return math.NaN()
-		}
-		if !ok3 {
-			r = u.Correlation
-		}
-	}
-	return convert.RatioUncertainty(h.models[pub.I], h.models[pub.J], t, convert.UncertaintyInputs{
-		Noise:       noise,
-		Correlation: r,
-		KRel:        u.EmissivityRatio,
-		Calibration: u.Calibration,
-	})
 }
 
 // failed is the reading published when a poll fails: no values, bad

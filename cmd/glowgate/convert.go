@@ -10,7 +10,7 @@ import (
 )
 
 func convertCmd(_ context.Context, e *env, args []string) error {
-	fs := newFlags("convert", "-config FILE -head NAME S1 S2",
+	fs := newFlags("convert", "-config FILE -head NAME S1 S2 [S3 ...]",
 		"Converts the channel signals S1 (short wavelength) and S2 (long wavelength) of a head\n"+
 			"to one reading, printed as JSON exactly as the daemon publishes it.", e.stderr)
 	path := fs.String("config", "", "configuration file (YAML)")
