@@ -1,5 +1,6 @@
 #!/usr/bin/python3
-"""Serve fixed Modbus TCP registers with pymodbus, as an independent peer for glowgate's tests.
+"""Serve fixed Modbus registers with pymodbus, over TCP or RTU on a serial line, as an independent
+peer for glowgate's tests.
 
 The server is Debian's python3-pymodbus (written against 3.0.0); glowgate's own code plays no part
 in it, so a test that reads these registers through glowgate's client checks that client against
@@ -9,9 +10,17 @@ Usage (run with /usr/bin/python3, the interpreter that has python3-pymodbus):
 
     pymodbus_server.py --port P [--host H] [--unit U] [--input SPEC] [--holding SPEC]
     pymodbus_server.py --port P [--host H] --spec FILE.json
+    pymodbus_server.py --serial PATH [--baud N] [--parity N|E|O] [--stopbits 1|2] [register flags]
 
-  --port P       TCP port to listen on; 0 picks a free one (see the "listening" line below).
+  --port P       Modbus TCP: port to listen on; 0 picks a free one (see the "listening" line below).
   --host H       address to bind, default 127.0.0.1.
+  --serial PATH  Modbus RTU instead of TCP: serve on the serial device PATH, for example one end of
+                 a pseudo-terminal pair made by
+                     socat pty,raw,echo=0,link=A pty,raw,echo=0,link=B
+                 (the client opens the other end). --port and --host are then not allowed.
+  --baud N       RTU: baud rate, default 19200 (a pseudo-terminal ignores it).
+  --parity P     RTU: N (none, default), E (even) or O (odd); pseudo-terminals refuse E and O.
+  --stopbits S   RTU: 1 (default) or 2. Characters are always 8 data bits.
   --unit U       unit identifier (0..255) the --input/--holding registers belong to; default 1.
   --input SPEC   input registers (function 04), SPEC = ADDR=WORD[:WORD...][,ADDR=WORD...]
   --holding SPEC holding registers (function 03), same SPEC form.
@@ -31,11 +40,13 @@ Registers not listed are absent: reading them answers exception 02 (illegal data
 to a unit not listed gets no answer at all (pymodbus 3.0 drops it), so the client times out.
 
 On start it prints two lines on standard output and flushes them:
-    listening 127.0.0.1:PORT
+    listening 127.0.0.1:PORT        (RTU: listening serial PATH)
     ready
 and then serves until SIGTERM or SIGINT, or until standard input reaches end of file when
 --stop-on-eof is given (so a parent that dies cannot leave the server behind). Bad arguments
-print a message naming the argument on standard error and exit with status 2.
+print a message naming the argument on standard error and exit with status 2; a port that cannot
+be bound or a serial device that cannot be opened prints the reason and exits with status 1.
+Over RTU, pymodbus 3.0 likewise leaves requests to units not listed unanswered.
 """
 
 import argparse
@@ -52,7 +63,8 @@ from pymodbus.datastore import (
     ModbusSlaveContext,
     ModbusSparseDataBlock,
 )
-from pymodbus.server import StartAsyncTcpServer
+from pymodbus.server import StartAsyncSerialServer, StartAsyncTcpServer
+from pymodbus.transaction import ModbusRtuFramer
 
 
 class SpecError(Exception):
@@ -162,14 +174,37 @@ def build_context(units):
     return ModbusServerContext(slaves=slaves, single=False)
 
 
-async def serve(host, port, context, stop_on_eof):
+async def start_tcp(host, port, context):
     server = await StartAsyncTcpServer(
         context=context, address=(host, port), defer_start=True, allow_reuse_address=True
     )
     task = asyncio.create_task(server.serve_forever())
     await server.serving
     bound = server.server.sockets[0].getsockname()
-    print(f"listening {bound[0]}:{bound[1]}", flush=True)
+    return server, task, f"{bound[0]}:{bound[1]}"
+
+
+async def start_rtu(path, baud, parity, stopbits, context):
+    server = await StartAsyncSerialServer(
+        context=context,
+        framer=ModbusRtuFramer,
+        defer_start=True,
+        port=path,
+        baudrate=baud,
+        parity=parity,
+        stopbits=stopbits,
+        bytesize=8,
+    )
+    # start() opens the device; it raises when the device cannot be opened.
+    await server.start()
+    if server.transport is None:
+        raise SpecError(f"--serial {path}: could not open the device")
+    return server, None, f"serial {path}"
+
+
+async def serve(start, stop_on_eof):
+    server, task, where = await start
+    print(f"listening {where}", flush=True)
     print("ready", flush=True)
 
     loop = asyncio.get_running_loop()
@@ -188,17 +223,22 @@ async def serve(host, port, context, stop_on_eof):
         threading.Thread(target=watch_stdin, daemon=True).start()
     await stop.wait()
     await server.shutdown()
-    task.cancel()
-    try:
-        await task
-    except asyncio.CancelledError:
-        pass
+    if task is not None:
+        task.cancel()
+        try:
+            await task
+        except asyncio.CancelledError:
+            pass
 
 
 def main(argv):
-    p = argparse.ArgumentParser(description="Serve fixed Modbus TCP registers with pymodbus.")
-    p.add_argument("--port", type=int, required=True)
-    p.add_argument("--host", default="127.0.0.1")
+    p = argparse.ArgumentParser(description="Serve fixed Modbus registers with pymodbus.")
+    p.add_argument("--port", type=int)
+    p.add_argument("--host")
+    p.add_argument("--serial")
+    p.add_argument("--baud", type=int, default=19200)
+    p.add_argument("--parity", default="N")
+    p.add_argument("--stopbits", type=int, default=1)
     p.add_argument("--unit", type=int, default=1)
     p.add_argument("--input", default="")
     p.add_argument("--holding", default="")
@@ -210,7 +250,18 @@ def main(argv):
     # expected here, so only --verbose shows its log.
     logging.getLogger("pymodbus").setLevel(logging.DEBUG if args.verbose else logging.CRITICAL)
     try:
-        if not 0 <= args.port <= 65535:
+        if args.serial is not None:
+            if args.port is not None or args.host is not None:
+                raise SpecError("--serial: give either --serial or --port/--host, not both")
+            if args.baud <= 0:
+                raise SpecError(f"--baud {args.baud}: must be positive")
+            if args.parity not in ("N", "E", "O"):
+                raise SpecError(f"--parity {args.parity!r}: want N, E or O")
+            if args.stopbits not in (1, 2):
+                raise SpecError(f"--stopbits {args.stopbits}: want 1 or 2")
+        elif args.port is None:
+            raise SpecError("--port: required unless --serial is given")
+        elif not 0 <= args.port <= 65535:
             raise SpecError(f"--port {args.port}: outside 0..65535")
         if args.spec:
             if args.input or args.holding:
@@ -228,7 +279,20 @@ def main(argv):
     except SpecError as exc:
         print(f"pymodbus_server: {exc}", file=sys.stderr)
         return 2
-    asyncio.run(serve(args.host, args.port, build_context(units), args.stop_on_eof))
+    context = build_context(units)
+
+    async def run():
+        if args.serial is not None:
+            start = start_rtu(args.serial, args.baud, args.parity, args.stopbits, context)
+        else:
+            start = start_tcp(args.host or "127.0.0.1", args.port, context)
+        await serve(start, args.stop_on_eof)
+
+    try:
+        asyncio.run(run())
+    except (SpecError, OSError) as exc:
+        print(f"pymodbus_server: {exc}", file=sys.stderr)
+        return 1
     return 0
 
 

@@ -1,7 +1,8 @@
 // Package modbus is glowgate's field bus: register maps and word orders
-// (Field), a Modbus TCP client with the known traps of its underlying library
-// handled (Client), and the owner goroutine that polls every head on one
-// endpoint (Line).
+// (Field) and their coalescing into read blocks (Coalesce), a Modbus TCP
+// client (Client) and a Modbus RTU client for serial lines (RTUClient), each
+// with the known traps of its underlying library handled, and the owner
+// goroutine that polls every head on one endpoint (Line).
 package modbus
 
 import (
@@ -153,7 +154,7 @@ func (c *Client) Close() error {
 func classify(err error, function byte) error {
 	var mbe *gmodbus.ModbusError
 	switch {
-	case errors.Is(err, ErrTimeout), errors.Is(err, ErrConnection), errors.Is(err, ErrMalformed),
+	case errors.Is(err, ErrTimeout), errors.Is(err, ErrConnection), errors.Is(err, ErrMalformed), errors.Is(err, ErrFrame),
 		errors.Is(err, ErrShortResponse), errors.Is(err, context.Canceled), errors.Is(err, context.DeadlineExceeded):
 		return err
 	case errors.As(err, &mbe):

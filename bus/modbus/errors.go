@@ -21,8 +21,16 @@ var (
 	// protocol or unit id, function code, byte count, frame length).
 	ErrMalformed = errors.New("modbus: malformed response")
 	// ErrInvalidRequest: a Request no device could answer (quantity outside
-	// 1..125, unknown table, addresses past 65535); nothing was sent.
+	// 1..125, unknown table, addresses past 65535, on a serial line a unit
+	// outside 1..247); nothing was sent.
 	ErrInvalidRequest = errors.New("modbus: invalid request")
+	// ErrFrame: on a serial line, a reply frame that is damaged: its CRC does
+	// not match, it stops short (silence before its last byte), or its
+	// header cannot begin an answer to a read (an odd or impossible byte
+	// count, a function code that is neither the request's nor its
+	// exception). Line noise causes these; a Line retries the transaction
+	// once at once.
+	ErrFrame = errors.New("modbus: damaged frame")
 )
 
 // ExceptionError is a Modbus exception response: the device understood the
@@ -63,10 +71,11 @@ const (
 	KindException                   // the device answered with a Modbus exception
 	KindConnection                  // connecting failed or the connection broke
 	KindMalformed                   // an answer that does not fit the request, or an invalid request
+	KindFrame                       // a damaged serial frame: CRC mismatch, truncated or garbled
 )
 
 // kindCount is the number of ErrorKind values.
-const kindCount = int(KindMalformed) + 1
+const kindCount = int(KindFrame) + 1
 
 var kindNames = [...]string{
 	KindNone:       "none",
@@ -74,6 +83,7 @@ var kindNames = [...]string{
 	KindException:  "exception",
 	KindConnection: "connection",
 	KindMalformed:  "malformed",
+	KindFrame:      "frame",
 }
 
 func (k ErrorKind) String() string { return nameOf(uint8(k), kindNames[:], "ErrorKind") }
@@ -90,6 +100,8 @@ func Kind(err error) ErrorKind {
 		return KindNone
 	case errors.As(err, &exc):
 		return KindException
+	case errors.Is(err, ErrFrame):
+		return KindFrame
 	case errors.Is(err, ErrTimeout), errors.Is(err, context.DeadlineExceeded), errors.Is(err, os.ErrDeadlineExceeded):
 		return KindTimeout
 	case errors.Is(err, ErrShortResponse), errors.Is(err, ErrMalformed), errors.Is(err, ErrInvalidRequest):

@@ -97,7 +97,7 @@ func ms(v ...int) []time.Duration {
 }
 
 func poll(name string, addr uint16, period time.Duration) modbus.Poll {
-	return modbus.Poll{Name: name, Request: modbus.Request{Unit: 1, Address: addr, Quantity: 1}, Period: period}
+	return modbus.Poll{Name: name, Requests: []modbus.Request{{Unit: 1, Address: addr, Quantity: 1}}, Period: period}
 }
 
 // runFor runs the line for d on the bubble's clock and returns Run's error.
@@ -171,7 +171,7 @@ func TestLineKeepsEachPollsPeriod(t *testing.T) {
 		if len(results) != 15 {
 			t.Fatalf("%d results delivered, want 15", len(results))
 		}
-		if r := results[0]; r.Poll != 0 || r.Err != nil || len(r.Registers) != 1 {
+		if r := results[0]; r.Poll != 0 || r.Err != nil || len(r.Blocks) != 1 || len(r.Blocks[0]) != 1 {
 			t.Errorf("first result = %+v", r)
 		}
 		if !fr.closed {
@@ -210,7 +210,7 @@ func TestLineDeadHeadBacksOff(t *testing.T) {
 				continue
 			}
 			deadResults++
-			if modbus.Kind(r.Err) != modbus.KindTimeout || r.Registers != nil || r.Elapsed != 50*time.Millisecond {
+			if modbus.Kind(r.Err) != modbus.KindTimeout || r.Blocks != nil || r.Elapsed != 50*time.Millisecond {
 				t.Errorf("dead head result = %+v, want a 50 ms timeout without registers", r)
 			}
 		}
@@ -219,10 +219,10 @@ func TestLineDeadHeadBacksOff(t *testing.T) {
 		}
 		s := l.Stats()
 		if s.Name != "l" || s.Polls[0].Name != "dead" || s.Polls[0].Polls != 6 ||
-			s.Polls[0].Errors[modbus.KindTimeout] != 6 || s.Polls[0].Failed() != 6 || !s.Polls[0].Failing {
+			s.Polls[0].Errors[modbus.KindTimeout] != 6 || s.Polls[0].Failures != 6 || !s.Polls[0].Failing {
 			t.Errorf("dead head stats = %+v", s.Polls[0])
 		}
-		if s.Polls[1].Failed() != 0 || s.Polls[1].Failing || s.Polls[1].Polls != uint64(len(alive)) {
+		if s.Polls[1].Failures != 0 || s.Polls[1].Failing || s.Polls[1].Polls != uint64(len(alive)) {
 			t.Errorf("healthy poll stats = %+v", s.Polls[1])
 		}
 	})
@@ -400,8 +400,9 @@ func TestLineRejectsBadPolls(t *testing.T) {
 	}{
 		{"none", nil, `line "l": no polls`},
 		{"zero period", []modbus.Poll{poll("a", 1, 0)}, `line "l": poll 0 ("a"): period 0s must be positive`},
-		{"zero quantity", []modbus.Poll{{Name: "b", Request: modbus.Request{Unit: 1}, Period: time.Second}},
-			`line "l": poll 0 ("b"): read input registers unit=1 addr=0 qty=0: modbus: invalid request: quantity 0 outside 1..125`},
+		{"zero quantity", []modbus.Poll{{Name: "b", Requests: []modbus.Request{{Unit: 1, Quantity: 1}, {Unit: 1}}, Period: time.Second}},
+			`line "l": poll 0 ("b") request 1: read input registers unit=1 addr=0 qty=0: modbus: invalid request: quantity 0 outside 1..125`},
+		{"no requests", []modbus.Poll{{Name: "c", Period: time.Second}}, `line "l": poll 0 ("c"): no requests`},
 	}
 	for _, c := range cases {
 		fr := newFakeReader(nil)
@@ -458,15 +459,15 @@ func TestLineWithClient(t *testing.T) {
 		srv.SetFault(2, modbustest.Fault{Kind: modbustest.Silent})
 		c := modbus.NewClient(srv.Dial, "pipe", time.Second)
 		polls := []modbus.Poll{
-			{Name: "good", Request: modbus.Request{Unit: 1, Quantity: 2}, Period: 100 * time.Millisecond},
-			{Name: "silent", Request: modbus.Request{Unit: 2, Quantity: 1}, Period: 100 * time.Millisecond},
+			{Name: "good", Requests: []modbus.Request{{Unit: 1, Quantity: 2}}, Period: 100 * time.Millisecond},
+			{Name: "silent", Requests: []modbus.Request{{Unit: 2, Quantity: 1}}, Period: 100 * time.Millisecond},
 		}
 		var values []float64
 		var kinds []modbus.ErrorKind
 		f := modbus.Field{Type: modbus.Float32}
 		l := modbus.NewLine(modbus.LineConfig{Name: "pipe", Timeout: 20 * time.Millisecond}, c, polls, func(r modbus.Result) {
 			if r.Poll == 0 {
-				v, err := f.Decode(r.Registers, 0)
+				v, err := f.Decode(r.Blocks[0], 0)
 				if err != nil {
 					t.Errorf("decode: %v (result %+v)", err, r)
 				}
@@ -487,6 +488,166 @@ func TestLineWithClient(t *testing.T) {
 		// Silent head: 0, 100, 300, 700 ms.
 		if !slices.Equal(kinds, []modbus.ErrorKind{modbus.KindTimeout, modbus.KindTimeout, modbus.KindTimeout, modbus.KindTimeout}) {
 			t.Errorf("silent head results = %v, want 4 timeouts", kinds)
+		}
+	})
+}
+
+// frameErrors fails the first k reads with a damaged frame.
+func frameErrors(k int) behaviour {
+	return func(ctx context.Context, n int) ([]uint16, error) {
+		if n < k {
+			return nil, fmt.Errorf("%w: CRC", modbus.ErrFrame)
+		}
+		return []uint16{uint16(n)}, nil
+	}
+}
+
+// takes spends d on each read.
+func takes(d time.Duration) behaviour {
+	return func(ctx context.Context, n int) ([]uint16, error) {
+		select {
+		case <-time.After(d):
+			return []uint16{uint16(n)}, nil
+		case <-ctx.Done():
+			return nil, fmt.Errorf("%w: slow", modbus.ErrTimeout)
+		}
+	}
+}
+
+func multi(name string, period time.Duration, addrs ...uint16) modbus.Poll {
+	p := modbus.Poll{Name: name, Period: period}
+	for _, a := range addrs {
+		p.Requests = append(p.Requests, modbus.Request{Unit: 1, Address: a, Quantity: 1})
+	}
+	return p
+}
+
+// A poll's requests are read back to back and delivered together, one block
+// per request; a failing request ends the poll, and the requests after it
+// are not read.
+func TestLinePollReadsBlocksBackToBack(t *testing.T) {
+	synctest.Test(t, func(t *testing.T) {
+		fr := newFakeReader(map[uint16]behaviour{1: ok, 2: takes(3 * time.Millisecond), 3: ok, 4: failFirst(1), 5: ok})
+		var got []string
+		l := modbus.NewLine(modbus.LineConfig{Name: "l"}, fr,
+			[]modbus.Poll{multi("a", 100*time.Millisecond, 1, 2, 3), multi("b", 100*time.Millisecond, 4, 5)},
+			func(r modbus.Result) {
+				got = append(got, fmt.Sprintf("%d %v %v %v", r.Poll, r.Blocks, modbus.Kind(r.Err), r.Elapsed))
+			})
+		runFor(t, l, 160*time.Millisecond)
+		want := []string{
+			"0 [[0] [0] [0]] none 3ms",
+			"1 [] connection 0s",
+			"0 [[1] [1] [1]] none 3ms",
+			"1 [[1] [0]] none 0s",
+		}
+		if !slices.Equal(got, want) {
+			t.Errorf("results = %q, want %q", got, want)
+		}
+		// The three blocks of poll a are read at once, with no gap but the
+		// read of block 2 itself.
+		if a1, a2, a3 := fr.times(1), fr.times(2), fr.times(3); !slices.Equal(a1, ms(0, 100)) ||
+			!slices.Equal(a2, ms(0, 100)) || !slices.Equal(a3, ms(3, 103)) {
+			t.Errorf("poll a read at %v, %v, %v", a1, a2, a3)
+		}
+		if a5 := fr.times(5); !slices.Equal(a5, ms(150)) {
+			t.Errorf("block 5 read at %v, want only after block 4 first succeeded (150 ms)", a5)
+		}
+		s := l.Stats()
+		if p := s.Polls[0]; p.Polls != 2 || p.Transactions != 6 || p.Failures != 0 {
+			t.Errorf("poll a stats = %+v", p)
+		}
+		if p := s.Polls[1]; p.Polls != 2 || p.Transactions != 3 || p.Failures != 1 || p.Errors[modbus.KindConnection] != 1 {
+			t.Errorf("poll b stats = %+v", p)
+		}
+	})
+}
+
+// A damaged frame is retried once at once; both attempts are counted. Two
+// in a row fail the poll; other errors are not retried.
+func TestLineRetriesFrameErrorOnce(t *testing.T) {
+	synctest.Test(t, func(t *testing.T) {
+		fr := newFakeReader(map[uint16]behaviour{1: frameErrors(1), 2: frameErrors(2), 3: failFirst(1)})
+		var kinds [3][]modbus.ErrorKind
+		l := modbus.NewLine(modbus.LineConfig{Name: "l"}, fr,
+			[]modbus.Poll{poll("once", 1, time.Second), poll("twice", 2, time.Second), poll("other", 3, time.Second)},
+			func(r modbus.Result) { kinds[r.Poll] = append(kinds[r.Poll], modbus.Kind(r.Err)) })
+		runFor(t, l, 700*time.Millisecond) // phases 0, 333 and 667 ms
+		if !slices.Equal(kinds[0], []modbus.ErrorKind{modbus.KindNone}) ||
+			!slices.Equal(kinds[1], []modbus.ErrorKind{modbus.KindFrame}) ||
+			!slices.Equal(kinds[2], []modbus.ErrorKind{modbus.KindConnection}) {
+			t.Errorf("results = %v", kinds)
+		}
+		s := l.Stats()
+		for i, want := range []modbus.PollStats{
+			{Name: "once", Polls: 1, Transactions: 2, Retries: 1, Errors: errs(modbus.KindFrame, 1)},
+			{Name: "twice", Polls: 1, Failures: 1, Transactions: 2, Retries: 1, Errors: errs(modbus.KindFrame, 2), Failing: true},
+			{Name: "other", Polls: 1, Failures: 1, Transactions: 1, Errors: errs(modbus.KindConnection, 1), Failing: true},
+		} {
+			if s.Polls[i] != want {
+				t.Errorf("poll %d stats = %+v, want %+v", i, s.Polls[i], want)
+			}
+		}
+		if got := fr.times(1); !slices.Equal(got, ms(0, 0)) {
+			t.Errorf("retry at %v, want at once", got)
+		}
+	})
+}
+
+func errs(k modbus.ErrorKind, n uint64) (e [modbus.KindFrame + 1]uint64) {
+	e[k] = n
+	return e
+}
+
+// The line's transaction times land in their buckets, and the busy
+// fraction is the time in transactions over the time running.
+func TestLineTransactionTimes(t *testing.T) {
+	synctest.Test(t, func(t *testing.T) {
+		fr := newFakeReader(map[uint16]behaviour{1: takes(3 * time.Millisecond), 2: takes(30 * time.Millisecond), 3: dead})
+		var took []time.Duration
+		l := modbus.NewLine(modbus.LineConfig{Name: "l", Timeout: 300 * time.Millisecond, BackoffMax: time.Hour},
+			fr, []modbus.Poll{poll("a", 1, 100*time.Millisecond), poll("b", 2, 100*time.Millisecond), poll("c", 3, 600*time.Millisecond)},
+			func(r modbus.Result) { took = append(took, r.Elapsed) })
+		if s := l.Stats(); s.Running != 0 || s.Busy() != 0 || s.Times.Mean() != 0 {
+			t.Errorf("stats before Run = %+v", s)
+		}
+		runFor(t, l, 995*time.Millisecond)
+		s := l.Stats()
+		var sum time.Duration
+		var n3, n30, n300 uint64
+		for _, d := range took {
+			sum += d
+			switch d {
+			case 3 * time.Millisecond:
+				n3++
+			case 30 * time.Millisecond:
+				n30++
+			case 300 * time.Millisecond:
+				n300++
+			default:
+				t.Errorf("a poll took %v", d)
+			}
+		}
+		if n3 < 8 || n30 < 8 || n300 != 1 {
+			t.Fatalf("polls took %v", took)
+		}
+		if s.Times.Count != uint64(len(took)) || s.Times.Sum != sum || s.Times.Mean() != sum/time.Duration(len(took)) {
+			t.Errorf("times = %+v, want %d transactions taking %v", s.Times, len(took), sum)
+		}
+		// Cumulative buckets: ≤ 5 ms holds the 3 ms reads, ≤ 50 ms the 30 ms
+		// ones too, ≤ 500 ms the timeout.
+		b := s.Times.Buckets
+		if b[1] != 0 || b[2] != n3 || b[4] != n3 || b[5] != n3+n30 || b[7] != n3+n30 || b[8] != n3+n30+n300 || b[11] != s.Times.Count {
+			t.Errorf("buckets %v for %d, %d, %d reads", b, n3, n30, n300)
+		}
+		if modbus.TransactionTimeBounds[2] != 5*time.Millisecond || modbus.TransactionTimeBounds[8] != 500*time.Millisecond {
+			t.Errorf("bounds %v", modbus.TransactionTimeBounds)
+		}
+		if s.Running != 995*time.Millisecond {
+			t.Errorf("running %v, want 995ms", s.Running)
+		}
+		if got, want := s.Busy(), float64(sum)/float64(995*time.Millisecond); got != want {
+			t.Errorf("busy %v, want %v", got, want)
 		}
 	})
 }

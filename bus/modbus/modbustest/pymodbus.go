@@ -42,6 +42,36 @@ func RequireReal(t testing.TB, format string, args ...any) {
 // skipped, or fails when GLOWGATE_REQUIRE_REAL=1.
 func StartPymodbus(t testing.TB, args ...string) string {
 	t.Helper()
+	where, _ := startPeer(t, append([]string{"--port", "0"}, args...))
+	if strings.HasPrefix(where, "serial ") {
+		t.Fatalf("pymodbus server listening on %q, want host:port", where)
+	}
+	return where
+}
+
+// StartPymodbusRTU starts testdata/pymodbus_server.py as a Modbus RTU
+// server (Debian python3-pymodbus's StartAsyncSerialServer with its
+// ModbusRtuFramer) on the serial device path, typically one end of a
+// PtyPair, with the given further arguments: the register flags, and
+// --baud, --parity (N on a pseudo-terminal), --stopbits (see the script's
+// usage). It returns once the server has opened the device. stop stops the
+// server and waits for it; it is also called at cleanup, and may be called
+// more than once. Without /usr/bin/python3 and pymodbus the test is
+// skipped, or fails when GLOWGATE_REQUIRE_REAL=1.
+func StartPymodbusRTU(t testing.TB, path string, args ...string) (stop func()) {
+	t.Helper()
+	where, stop := startPeer(t, append([]string{"--serial", path}, args...))
+	if where != "serial "+path {
+		t.Fatalf("pymodbus server listening on %q, want serial %s", where, path)
+	}
+	return stop
+}
+
+// startPeer runs the script with args and --stop-on-eof, waits for its
+// "ready" line and returns what its "listening" line names, and a function
+// that stops it (closing its standard input) and waits for it to exit.
+func startPeer(t testing.TB, args []string) (where string, stop func()) {
+	t.Helper()
 	if _, err := os.Stat(python); err != nil {
 		RequireReal(t, "%s not installed: %v", python, err)
 	}
@@ -49,7 +79,7 @@ func StartPymodbus(t testing.TB, args ...string) string {
 		RequireReal(t, "python3-pymodbus not importable by %s: %v: %s", python, err, out)
 	}
 	script := peerScript()
-	cmd := exec.Command(python, append([]string{script, "--port", "0", "--stop-on-eof"}, args...)...)
+	cmd := exec.Command(python, append([]string{script, "--stop-on-eof"}, args...)...)
 	stdin, err := cmd.StdinPipe()
 	if err != nil {
 		t.Fatal(err)
@@ -77,35 +107,38 @@ func StartPymodbus(t testing.TB, args ...string) string {
 			}
 		}
 	}()
-	t.Cleanup(func() {
-		stdin.Close() // --stop-on-eof: the server exits
-		timer := time.NewTimer(20 * time.Second)
-		defer timer.Stop()
-		select {
-		case <-eof:
-		case <-timer.C:
-			t.Errorf("pymodbus server still running 20 s after stdin closed; killing it")
-			cmd.Process.Kill()
-			<-eof
-		}
-		if err := cmd.Wait(); err != nil && !t.Failed() {
-			t.Errorf("pymodbus server: %v; stderr:\n%s", err, stderr.String())
-		}
-	})
+	var once sync.Once
+	stop = func() {
+		once.Do(func() {
+			stdin.Close() // --stop-on-eof: the server exits
+			timer := time.NewTimer(20 * time.Second)
+			defer timer.Stop()
+			select {
+			case <-eof:
+			case <-timer.C:
+				t.Errorf("pymodbus server still running 20 s after stdin closed; killing it")
+				cmd.Process.Kill()
+				<-eof
+			}
+			if err := cmd.Wait(); err != nil && !t.Failed() {
+				t.Errorf("pymodbus server: %v; stderr:\n%s", err, stderr.String())
+			}
+		})
+	}
+	t.Cleanup(stop)
 	timer := time.NewTimer(30 * time.Second)
 	defer timer.Stop()
-	addr := ""
 	for {
 		select {
 		case line := <-lines:
-			if a, found := strings.CutPrefix(line, "listening "); found {
-				addr = a
+			if w, found := strings.CutPrefix(line, "listening "); found {
+				where = w
 			}
 			if line == "ready" {
-				if addr == "" {
+				if where == "" {
 					t.Fatalf("pymodbus server ready without a listening line")
 				}
-				return addr
+				return where, stop
 			}
 		case <-eof:
 			if len(lines) > 0 {

@@ -8,6 +8,11 @@
 // The MBAP framing is written here by hand from the Modbus Messaging on
 // TCP/IP Implementation Guide V1.0b and the Modbus Application Protocol
 // V1.1b3, so that it shares no code with the client under test.
+//
+// For serial lines, PtyPair (socat's pseudo-terminal pairs) stands in for an
+// RS-485 line, and StartPymodbusRTU puts Debian's python3-pymodbus on one
+// end as an independent RTU device; StartPymodbus is the same peer over
+// TCP.
 package modbustest
 
 import (
