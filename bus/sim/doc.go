@@ -12,9 +12,17 @@
 // does for a real ratio pyrometer; unequal ε_i give an emissivity ratio other
 // than 1.
 //
-// A Server serves one or more heads over Modbus TCP at one address, each under
-// its own unit id, encoding each channel signal into registers as its
+// A head may also serve a status word whose bits follow scripted episodes
+// (StatusWord) and further scripted values such as its internal temperature
+// (Extra), in either register table, and may misbehave on the bus as scripted
+// Faults say: silent, late, with a corrupted CRC, with an exception, or with
+// a truncated answer, in windows of scenario time.
+//
+// A Server serves one or more heads over Modbus TCP at one address, and an
+// RTUServer serves them as slaves on a simulated Modbus RTU line, a
+// pseudo-terminal paced like a serial line at its baud rate; each head
+// answers under its own unit id, encoding each value into registers as its
 // modbus.Field describes. Scenario time starts when the server starts, on a
-// clock the caller may replace (Server.Now), so tests step time instead of
-// waiting.
+// clock the caller may replace (Server.Now, RTUConfig.Now), so tests step
+// time instead of waiting.
 package sim

@@ -41,6 +41,13 @@ type Head struct {
 	Noise float64
 	// Seed seeds the head's noise source (see NewRand).
 	Seed int64
+
+	// Status, when set, is a status word served beside the channels.
+	Status *StatusWord
+	// Extras are further values served beside the channels.
+	Extras []Extra
+	// Faults script the head's misbehaviour on the bus.
+	Faults []Fault
 }
 
 // pcgStream is the second PCG word of every head's noise source; the first is the
@@ -93,10 +100,12 @@ func (h *Head) Signals(elapsed time.Duration, rng *rand.Rand, dst []float64) []f
 
 // Validate reports the first thing wrong with the head, naming the field: an
 // unknown table, no channels, a channel without a model, an emissivity outside
-// (0, 1], a register field of no length, with a non-finite scale or offset,
-// beyond address 65535 or overlapping another channel's, a temperature profile
-// that reaches 0 K or below, a transmission profile leaving [0, 1], or a
-// negative or non-finite noise.
+// (0, 1], a register field (of a channel, the status word or an extra) of no
+// length, with a non-finite scale or offset, beyond address 65535 or
+// overlapping another field in the same table, a temperature profile that
+// reaches 0 K or below, a transmission profile leaving [0, 1], a negative or
+// non-finite noise, a status word or extra that is not well formed, or a fault
+// Fault.Validate refuses.
 func (h *Head) Validate() error {
 	if err := h.validate(); err != nil {
 		return fmt.Errorf("head %q (unit %d): %w", h.Name, h.Unit, err)
@@ -120,23 +129,35 @@ func (h *Head) validate() error {
 		if !(c.Emissivity > 0 && c.Emissivity <= 1) {
 			return fmt.Errorf("channels[%d].emissivity: %v outside (0, 1]", i, c.Emissivity)
 		}
-		n := c.Field.Len()
+	}
+	if h.Status != nil {
+		if err := h.Status.validate(); err != nil {
+			return fmt.Errorf("status.%w", err)
+		}
+	}
+	for i := range h.Extras {
+		if err := h.Extras[i].validate(); err != nil {
+			return fmt.Errorf("extras[%d].%w", i, err)
+		}
+	}
+	fields := h.placedFields()
+	for i, p := range fields {
+		f := p.field
+		n := f.Len()
 		if n == 0 {
-			return fmt.Errorf("channels[%d].field: register type %v has no length", i, c.Field.Type)
+			return fmt.Errorf("%s.field: register type %v has no length", p.what, f.Type)
 		}
-		if end := uint32(c.Field.Address) + uint32(n); end > 1<<16 {
-			return fmt.Errorf("channels[%d].field: registers %d..%d reach beyond address 65535",
-				i, c.Field.Address, end-1)
+		if end := uint32(f.Address) + uint32(n); end > 1<<16 {
+			return fmt.Errorf("%s.field: registers %d..%d reach beyond address 65535", p.what, f.Address, end-1)
 		}
-		if f := c.Field; math.IsNaN(f.Scale) || math.IsInf(f.Scale, 0) || math.IsNaN(f.Offset) || math.IsInf(f.Offset, 0) {
-			return fmt.Errorf("channels[%d].field: scale %v and offset %v must be finite", i, f.Scale, f.Offset)
+		if math.IsNaN(f.Scale) || math.IsInf(f.Scale, 0) || math.IsNaN(f.Offset) || math.IsInf(f.Offset, 0) {
+			return fmt.Errorf("%s.field: scale %v and offset %v must be finite", p.what, f.Scale, f.Offset)
 		}
-		for j := range i {
-			o := h.Channels[j].Field
-			if overlap(c.Field.Address, n, o.Address, o.Len()) {
-				return fmt.Errorf("channels[%d].field: registers %d..%d overlap channels[%d] at %d..%d",
-					i, c.Field.Address, uint32(c.Field.Address)+uint32(n)-1,
-					j, o.Address, uint32(o.Address)+uint32(o.Len())-1)
+		for _, o := range fields[:i] {
+			if o.table == p.table && overlap(f.Address, n, o.field.Address, o.field.Len()) {
+				return fmt.Errorf("%s.field: %v registers %d..%d overlap %s at %d..%d",
+					p.what, p.table, f.Address, uint32(f.Address)+uint32(n)-1,
+					o.what, o.field.Address, uint32(o.field.Address)+uint32(o.field.Len())-1)
 			}
 		}
 	}
@@ -155,7 +176,52 @@ func (h *Head) validate() error {
 	if !(h.Noise >= 0) || math.IsInf(h.Noise, 0) {
 		return fmt.Errorf("noise: %v, want a finite value >= 0", h.Noise)
 	}
+	for i, f := range h.Faults {
+		if err := f.Validate(); err != nil {
+			return fmt.Errorf("faults[%d].%w", i, err)
+		}
+	}
 	return nil
+}
+
+// placedField is one register field a head serves: a channel signal, the
+// status word or an extra value.
+type placedField struct {
+	what  string // "channels[0]", "status", "extras[1]"
+	kind  fieldKind
+	index int // channel or extra index
+	table modbus.Table
+	field modbus.Field
+}
+
+type fieldKind uint8
+
+const (
+	channelField fieldKind = iota
+	statusField
+	extraField
+)
+
+// placedFields lists the head's register fields: channels, then the status
+// word, then the extras.
+func (h *Head) placedFields() []placedField {
+	out := make([]placedField, 0, len(h.Channels)+1+len(h.Extras))
+	for i, c := range h.Channels {
+		out = append(out, placedField{fmt.Sprintf("channels[%d]", i), channelField, i, h.Table, c.Field})
+	}
+	tableOr := func(t *modbus.Table) modbus.Table {
+		if t != nil {
+			return *t
+		}
+		return h.Table
+	}
+	if h.Status != nil {
+		out = append(out, placedField{"status", statusField, 0, tableOr(h.Status.Table), h.Status.Field})
+	}
+	for i, e := range h.Extras {
+		out = append(out, placedField{fmt.Sprintf("extras[%d]", i), extraField, i, tableOr(e.Table), e.Field})
+	}
+	return out
 }
 
 // overlap reports whether register ranges [a, a+n) and [b, b+m) share a register.

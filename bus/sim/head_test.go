@@ -217,7 +217,7 @@ func TestHeadValidate(t *testing.T) {
 		{"unknown type", func(h *Head) { h.Channels[0].Field.Type = 99 }, "channels[0].field: register type Type(99) has no length"},
 		{"NaN scale", func(h *Head) { h.Channels[0].Field.Scale = math.NaN() }, "channels[0].field: scale NaN and offset 0 must be finite"},
 		{"beyond 65535", func(h *Head) { h.Channels[1].Field.Address = 65535 }, "channels[1].field: registers 65535..65536 reach beyond address 65535"},
-		{"overlap", func(h *Head) { h.Channels[1].Field.Address = 1 }, "channels[1].field: registers 1..2 overlap channels[0] at 0..1"},
+		{"overlap", func(h *Head) { h.Channels[1].Field.Address = 1 }, "channels[1].field: input registers 1..2 overlap channels[0] at 0..1"},
 		{"zero kelvin", func(h *Head) {
 			h.Temperature.Segments = []Segment{{Kind: Ramp, Value: 0, Duration: time.Second}}
 		}, "temperature: reaches 0 K, want above 0 K"},

@@ -2,19 +2,14 @@ package sim
 
 import (
 	"context"
+	"encoding/binary"
 	"errors"
 	"fmt"
-	"log"
+	"io"
 	"log/slog"
-	"math/rand/v2"
 	"net"
-	"strings"
 	"sync"
 	"time"
-
-	"glowgate/bus/modbus"
-
-	svmodbus "github.com/simonvetter/modbus"
 )
 
 // Defaults of the Server's tunables.
@@ -29,30 +24,37 @@ const (
 const logEvery = 10 * time.Second
 
 // Server serves simulated heads over Modbus TCP at one address, each head under
-// its own unit id. Heads are read-only: the server answers reads of the head's
-// register table (function 03 for holding, 04 for input registers) with the
-// channel signals at the moment of the request, encoded as each channel's Field
-// says. Scenario time zero is the moment Start is called.
+// its own unit id. Heads are read-only: the server answers reads (function 03
+// for holding, 04 for input registers) with the channel signals, the status
+// word and the extra values at the moment of the request, encoded as each
+// field says. Scenario time zero is the moment Start is called.
 //
 // Answers other than register data:
 //   - a unit id no head uses: exception 0x0B (gateway target device failed to
 //     respond), promptly, so a poller configured with a wrong unit id sees a
 //     clear error instead of a timeout;
-//   - a read of the table the head does not use: exception 0x02 (illegal data
-//     address), since the head has no registers there;
-//   - a read reaching beyond the head's last channel register: exception 0x02;
-//     registers between channel fields read as zero;
-//   - a channel signal the field cannot encode (integer overflow, NaN):
-//     exception 0x04 (server device failure) and a rate-limited warning;
+//   - a read of a table the head serves no field in, or reaching beyond the
+//     head's last register in that table: exception 0x02 (illegal data
+//     address); registers between fields read as zero;
+//   - a read quantity of 0 or more than 125 registers, or a read request of
+//     the wrong length: exception 0x03 (illegal data value);
+//   - a value its field cannot encode (integer overflow, NaN): exception 0x04
+//     (server device failure) and a rate-limited warning;
 //   - any write, and coil or discrete-input functions: exception 0x01 (illegal
 //     function);
-//   - a read quantity of 0 or more than 125 registers: the Modbus library
-//     closes the connection instead of answering exception 0x03 (illegal data
-//     value). Pollers never ask for such quantities, so this is left as is.
+//   - a frame whose MBAP header is not Modbus (protocol id other than 0, a
+//     length field outside 2..254): the connection is closed.
 //
-// A Server is served by several goroutines of the Modbus library at once; each
-// head's noise source is guarded by its own mutex, so concurrent reads of one
-// head draw distinct noise samples.
+// A head's Faults apply to requests addressed to it: Silent leaves the request
+// unanswered (the connection stays open, as a gateway whose serial head is
+// dead would), Late answers Delay later on the wall clock, Exception answers
+// the fault's code, and Truncated sends the first half of the answer and
+// closes the connection. CRCError has no meaning on TCP and NewServer refuses
+// it.
+//
+// Each connection is served by its own goroutine, one request at a time; each
+// head's state is guarded by its own mutex, so concurrent reads of one head
+// draw distinct noise samples.
 type Server struct {
 	// Now is the clock for scenario time; nil means time.Now. Set it before
 	// Start and leave it unchanged while the server runs; it is called from
@@ -71,11 +73,17 @@ type Server struct {
 	units   []int // unit ids in configuration order, for logs
 
 	unknownUnit rateLimit
+	protocol    rateLimit
+	refused     rateLimit
 
-	mu      sync.Mutex
+	mu      sync.Mutex // guards state, ln, conns
 	state   serverState
 	start   time.Time // scenario time zero; written once in Start, before serving
-	mb      *svmodbus.ModbusServer
+	ln      net.Listener
+	conns   map[net.Conn]struct{}
+	done    chan struct{} // closed when Close begins
+	closed  chan struct{} // closed when Close has finished // closed by Close: ends late answers
+	wg      sync.WaitGroup
 	stopCtx func() bool
 }
 
@@ -87,23 +95,11 @@ const (
 	stateClosed
 )
 
-// servedHead is a head with its serving state.
-type servedHead struct {
-	head   Head
-	end    uint32 // one past the last register of any channel field
-	logger *slog.Logger
-
-	mu      sync.Mutex // guards everything below
-	rng     *rand.Rand
-	signals []float64
-	scratch []uint16
-	encode  rateLimit
-}
-
 // NewServer checks the heads and returns a server for them at address (host:port,
-// as net.Listen takes it). Each head is validated with Head.Validate, and unit
-// ids must be distinct. The heads are copied; later changes to the slice or its
-// channels do not reach the server. A nil logger discards log output.
+// as net.Listen takes it; port 0 picks a free port, see Address). Each head is
+// validated with Head.Validate, unit ids must be distinct, and no fault may be
+// of kind CRCError. The heads are copied; later changes to the slice or
+// anything it holds do not reach the server. A nil logger discards log output.
 func NewServer(address string, heads []Head, logger *slog.Logger) (*Server, error) {
 	if _, _, err := net.SplitHostPort(address); err != nil {
 		return nil, fmt.Errorf("sim: address %q: %w", address, err)
@@ -114,52 +110,39 @@ func NewServer(address string, heads []Head, logger *slog.Logger) (*Server, erro
 	if logger == nil {
 		logger = slog.New(slog.DiscardHandler)
 	}
-	s := &Server{
-		address: address,
-		logger:  logger,
-		heads:   make(map[uint8]*servedHead, len(heads)),
-	}
-	var errs []error
-	byUnit := make(map[uint8]int, len(heads))
-	for i := range heads {
-		h := heads[i]
-		h.Channels = append([]Channel(nil), h.Channels...)
-		h.Temperature.Segments = append([]Segment(nil), h.Temperature.Segments...)
-		h.Transmission.Segments = append([]Segment(nil), h.Transmission.Segments...)
-		if err := h.Validate(); err != nil {
-			errs = append(errs, fmt.Errorf("heads[%d]: %w", i, err))
-			continue
+	served, units, err := servedHeads(heads, logger, func(h *Head) error {
+		for i, f := range h.Faults {
+			if f.Kind == CRCError {
+				return fmt.Errorf("faults[%d].kind: %s: a Modbus TCP frame carries no CRC to corrupt (this fault is for RTU lines)", i, f.Kind)
+			}
 		}
-		if j, dup := byUnit[h.Unit]; dup {
-			errs = append(errs, fmt.Errorf("heads[%d]: head %q: unit id %d already used by heads[%d] %q",
-				i, h.Name, h.Unit, j, heads[j].Name))
-			continue
-		}
-		byUnit[h.Unit] = i
-		sh := &servedHead{
-			head:    h,
-			logger:  logger.With("head", h.Name, "unit", h.Unit),
-			rng:     h.NewRand(),
-			signals: make([]float64, len(h.Channels)),
-		}
-		var widest uint16
-		for _, c := range h.Channels {
-			n := c.Field.Len()
-			sh.end = max(sh.end, uint32(c.Field.Address)+uint32(n))
-			widest = max(widest, n)
-		}
-		sh.scratch = make([]uint16, widest)
-		s.heads[h.Unit] = sh
-		s.units = append(s.units, int(h.Unit))
-	}
-	if err := errors.Join(errs...); err != nil {
+		return nil
+	})
+	if err != nil {
 		return nil, fmt.Errorf("sim: address %s: %w", address, err)
 	}
-	return s, nil
+	return &Server{
+		address: address,
+		logger:  logger,
+		heads:   served,
+		units:   units,
+		conns:   map[net.Conn]struct{}{},
+		done:    make(chan struct{}),
+		closed:  make(chan struct{}),
+	}, nil
 }
 
-// Address returns the address the server was configured with.
-func (s *Server) Address() string { return s.address }
+// Address returns the address the server listens at once started (with the
+// port the system chose when the configured port was 0), and the configured
+// address before Start.
+func (s *Server) Address() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.ln != nil {
+		return s.ln.Addr().String()
+	}
+	return s.address
+}
 
 // Start begins listening at the server's address and serving requests, and
 // returns once the listener is bound. Scenario time zero is s.Now() at this call.
@@ -178,47 +161,47 @@ func (s *Server) Start(ctx context.Context) error {
 	case stateClosed:
 		return fmt.Errorf("sim: start %s: server closed", s.address)
 	}
-	idle := s.IdleTimeout
-	if idle <= 0 {
-		idle = DefaultIdleTimeout
-	}
-	clients := s.MaxClients
-	if clients == 0 {
-		clients = DefaultMaxClients
-	}
-	mb, err := svmodbus.NewServer(&svmodbus.ServerConfiguration{
-		URL:        "tcp://" + s.address,
-		Timeout:    idle,
-		MaxClients: clients,
-		Logger:     log.New(libraryLog{s.logger}, "", 0),
-	}, handler{s})
+	var lc net.ListenConfig
+	ln, err := lc.Listen(ctx, "tcp", s.address)
 	if err != nil {
-		return fmt.Errorf("sim: start %s: %w", s.address, err)
-	}
-	s.start = s.now()
-	if err := mb.Start(); err != nil {
 		return fmt.Errorf("sim: listen on %s: %w", s.address, err)
 	}
-	s.mb = mb
+	s.ln = ln
+	s.start = s.now()
 	s.state = stateRunning
+	s.wg.Go(s.accept)
 	s.stopCtx = context.AfterFunc(ctx, func() { _ = s.Close() })
-	s.logger.Info("serving simulated heads", "address", s.address, "units", s.units)
+	s.logger.Info("serving simulated heads", "address", ln.Addr().String(), "units", s.units)
 	return nil
 }
 
-// Close stops listening and closes every client connection. It is safe to call
-// more than once and before Start; a closed server cannot be started again.
-// Requests already being handled by the Modbus library finish on their own.
+// Close stops listening, closes every client connection and waits for the
+// connections' goroutines to end. It is safe to call more than once and before
+// Start; a closed server cannot be started again.
 func (s *Server) Close() error {
 	s.mu.Lock()
-	defer s.mu.Unlock()
-	if s.state != stateRunning {
+	switch s.state {
+	case stateNew:
 		s.state = stateClosed
+		close(s.closed)
+		s.mu.Unlock()
+		return nil
+	case stateClosed:
+		s.mu.Unlock()
+		<-s.closed // another Close may still be at work
 		return nil
 	}
 	s.state = stateClosed
+	defer close(s.closed)
 	s.stopCtx()
-	if err := s.mb.Stop(); err != nil {
+	close(s.done)
+	err := s.ln.Close()
+	for c := range s.conns {
+		c.Close()
+	}
+	s.mu.Unlock()
+	s.wg.Wait()
+	if err != nil {
 		return fmt.Errorf("sim: close %s: %w", s.address, err)
 	}
 	s.logger.Info("stopped serving simulated heads", "address", s.address)
@@ -232,135 +215,153 @@ func (s *Server) now() time.Time {
 	return time.Now()
 }
 
-// head returns the head at unit, logging requests for unknown units at a
-// limited rate.
-func (s *Server) head(unit uint8, client string) (*servedHead, error) {
-	if h, ok := s.heads[unit]; ok {
-		return h, nil
-	}
-	if ok, skipped := s.unknownUnit.allow(s.now()); ok {
-		s.logger.Warn("request for a unit id no simulated head uses; answering exception 0x0B",
-			"unit", unit, "client", client, "units", s.units, "suppressed", skipped)
-	}
-	return nil, svmodbus.ErrGWTargetFailedToRespond
-}
-
-// read answers a register read of qty registers from addr in table of the head
-// at unit.
-func (s *Server) read(unit uint8, client string, table modbus.Table, addr, qty uint16) ([]uint16, error) {
-	h, err := s.head(unit, client)
-	if err != nil {
-		return nil, err
-	}
-	if table != h.head.Table || uint32(addr)+uint32(qty) > h.end {
-		return nil, svmodbus.ErrIllegalDataAddress
-	}
-	now := s.now()
-	elapsed := now.Sub(s.start)
-	regs := make([]uint16, qty)
-
-	h.mu.Lock()
-	defer h.mu.Unlock()
-	sig := h.head.Signals(elapsed, h.rng, h.signals)
-	for i, c := range h.head.Channels {
-		f := c.Field
-		n := f.Len()
-		if !overlap(addr, qty, f.Address, n) {
+// accept takes connections until the listener is closed.
+func (s *Server) accept() {
+	backoff := time.Duration(0)
+	for {
+		c, err := s.ln.Accept()
+		if err != nil {
+			if errors.Is(err, net.ErrClosed) {
+				return
+			}
+			// Out of file descriptors or the like: wait a little and retry,
+			// as net/http's Server.Serve does.
+			backoff = min(max(2*backoff, 5*time.Millisecond), time.Second)
+			s.logger.Warn("accept failed; retrying", "address", s.address, "err", err, "retry_in", backoff)
+			select {
+			case <-s.done:
+				return
+			case <-time.After(backoff):
+			}
 			continue
 		}
-		block := h.scratch[:n]
-		clear(block)
-		if err := f.Encode(sig[i], block, f.Address); err != nil {
-			if ok, skipped := h.encode.allow(now); ok {
-				h.logger.Warn("channel signal cannot be encoded; answering exception 0x04",
-					"channel", i, "signal", sig[i], "elapsed", elapsed, "err", err, "suppressed", skipped)
+		backoff = 0
+		s.mu.Lock()
+		switch {
+		case s.state != stateRunning:
+			c.Close()
+		case uint(len(s.conns)) >= s.maxClients():
+			c.Close()
+			if ok, skipped := s.refused.allow(s.now()); ok {
+				s.logger.Warn("too many clients; connection closed", "client", c.RemoteAddr().String(),
+					"max_clients", s.maxClients(), "suppressed", skipped)
 			}
-			return nil, svmodbus.ErrServerDeviceFailure
+		default:
+			s.conns[c] = struct{}{}
+			s.wg.Go(func() { s.serve(c) })
 		}
-		lo := max(uint32(addr), uint32(f.Address))
-		hi := min(uint32(addr)+uint32(qty), uint32(f.Address)+uint32(n))
-		copy(regs[lo-uint32(addr):hi-uint32(addr)], block[lo-uint32(f.Address):hi-uint32(f.Address)])
+		s.mu.Unlock()
 	}
-	return regs, nil
 }
 
-// handler adapts a Server to the Modbus library's request handler, keeping the
-// handler methods out of Server's API.
-type handler struct{ s *Server }
-
-func (h handler) HandleCoils(req *svmodbus.CoilsRequest) ([]bool, error) {
-	if _, err := h.s.head(req.UnitId, req.ClientAddr); err != nil {
-		return nil, err
+func (s *Server) maxClients() uint {
+	if s.MaxClients == 0 {
+		return DefaultMaxClients
 	}
-	return nil, svmodbus.ErrIllegalFunction
+	return s.MaxClients
 }
 
-func (h handler) HandleDiscreteInputs(req *svmodbus.DiscreteInputsRequest) ([]bool, error) {
-	if _, err := h.s.head(req.UnitId, req.ClientAddr); err != nil {
-		return nil, err
-	}
-	return nil, svmodbus.ErrIllegalFunction
-}
+// MBAP header and PDU limits (Modbus Messaging on TCP/IP Implementation Guide
+// V1.0b, 3.1.3): transaction id, protocol id 0, length (unit id + PDU, at most
+// 1 + 253), unit id.
+const (
+	mbapHeader = 7
+	maxPDU     = 253
+)
 
-func (h handler) HandleHoldingRegisters(req *svmodbus.HoldingRegistersRequest) ([]uint16, error) {
-	if req.IsWrite {
-		if _, err := h.s.head(req.UnitId, req.ClientAddr); err != nil {
-			return nil, err
+// serve answers the requests of one connection until it closes, idles out, or
+// breaks the protocol.
+func (s *Server) serve(c net.Conn) {
+	defer func() {
+		s.mu.Lock()
+		delete(s.conns, c)
+		s.mu.Unlock()
+		c.Close()
+	}()
+	idle := s.IdleTimeout
+	if idle <= 0 {
+		idle = DefaultIdleTimeout
+	}
+	client := c.RemoteAddr().String()
+	var in [mbapHeader + maxPDU]byte
+	out := make([]byte, 0, mbapHeader+maxPDU)
+	for {
+		if err := c.SetDeadline(time.Now().Add(idle)); err != nil {
+			return
 		}
-		return nil, svmodbus.ErrIllegalFunction
-	}
-	return h.s.read(req.UnitId, req.ClientAddr, modbus.HoldingRegisters, req.Addr, req.Quantity)
-}
-
-func (h handler) HandleInputRegisters(req *svmodbus.InputRegistersRequest) ([]uint16, error) {
-	return h.s.read(req.UnitId, req.ClientAddr, modbus.InputRegisters, req.Addr, req.Quantity)
-}
-
-// rateLimit lets one event through per logEvery and counts the rest.
-type rateLimit struct {
-	mu         sync.Mutex
-	last       time.Time
-	suppressed int
-}
-
-// allow reports whether an event at now may be logged, and how many events were
-// held back since the last one that was.
-func (r *rateLimit) allow(now time.Time) (ok bool, suppressed int) {
-	r.mu.Lock()
-	defer r.mu.Unlock()
-	if !r.last.IsZero() && now.Sub(r.last) < logEvery {
-		r.suppressed++
-		return false, 0
-	}
-	r.last, suppressed, r.suppressed = now, r.suppressed, 0
-	return true, suppressed
-}
-
-// libraryLog turns the Modbus library's log lines ("<prefix> [warn]: <text>")
-// into structured records at the matching level.
-type libraryLog struct{ logger *slog.Logger }
-
-func (l libraryLog) Write(p []byte) (int, error) {
-	line := strings.TrimSpace(string(p))
-	level, msg, origin := slog.LevelInfo, line, ""
-	for _, lv := range []struct {
-		tag   string
-		level slog.Level
-	}{{" [info]: ", slog.LevelInfo}, {" [warn]: ", slog.LevelWarn}, {" [error]: ", slog.LevelError}} {
-		if i := strings.Index(line, lv.tag); i >= 0 {
-			level, origin, msg = lv.level, line[:i], line[i+len(lv.tag):]
-			break
+		if _, err := io.ReadFull(c, in[:mbapHeader]); err != nil {
+			return // closed by the client or by Close, or idle
+		}
+		proto := binary.BigEndian.Uint16(in[2:])
+		n := int(binary.BigEndian.Uint16(in[4:]))
+		if proto != 0 || n < 2 || n > 1+maxPDU {
+			if ok, skipped := s.protocol.allow(s.now()); ok {
+				s.logger.Warn("not a Modbus TCP frame; connection closed", "client", client,
+					"protocol_id", proto, "length", n, "suppressed", skipped)
+			}
+			return
+		}
+		if _, err := io.ReadFull(c, in[mbapHeader:mbapHeader+n-1]); err != nil {
+			return
+		}
+		unit, req := in[6], in[mbapHeader:mbapHeader+n-1]
+		out = append(out[:0], in[:mbapHeader]...) // transaction, protocol, length (set below), unit
+		h, ok := s.heads[unit]
+		if !ok {
+			if ok, skipped := s.unknownUnit.allow(s.now()); ok {
+				s.logger.Warn("request for a unit id no simulated head uses; answering exception 0x0B",
+					"unit", unit, "client", client, "units", s.units, "suppressed", skipped)
+			}
+			out = append(out, req[0]|0x80, excGatewayNoRespond)
+		} else {
+			now := s.now()
+			elapsed := now.Sub(s.start)
+			f := h.decide(elapsed)
+			switch f.kind {
+			case Silent:
+				continue
+			case Late:
+				if !s.wait(f.delay) {
+					return
+				}
+			case Exception:
+				out = append(out, req[0]|0x80, f.code)
+			}
+			if f.kind != Exception {
+				out = h.answer(out, req, now, elapsed)
+			}
+			if f.kind == Truncated {
+				binary.BigEndian.PutUint16(out[4:], uint16(len(out)-6))
+				c.Write(out[:len(out)/2])
+				return
+			}
+		}
+		binary.BigEndian.PutUint16(out[4:], uint16(len(out)-6))
+		if _, err := c.Write(out); err != nil {
+			return
 		}
 	}
-	l.logger.Log(context.Background(), level, msg, "origin", origin)
-	return len(p), nil
+}
+
+// wait waits d on the wall clock, and reports false if the server closed
+// meanwhile.
+func (s *Server) wait(d time.Duration) bool {
+	t := time.NewTimer(d)
+	defer t.Stop()
+	select {
+	case <-t.C:
+		return true
+	case <-s.done:
+		return false
+	}
 }
 
 // FreeAddr returns a loopback address with a port that was free a moment ago:
 // it listens on 127.0.0.1:0, notes the port and closes the listener. Another
 // process may take the port before the caller binds it; callers that must not
-// fail retry with a fresh address. It exists because the Modbus library binds
-// its own listener and does not report the port it got.
+// fail retry with a fresh address. A server given port 0 picks its own port
+// and reports it with Address; FreeAddr is for callers that must know the
+// address before the server starts.
 func FreeAddr() (string, error) {
 	l, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
