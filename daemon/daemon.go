@@ -4,8 +4,9 @@
 //
 // Data flow for each poll:
 //
-//	line owner (one goroutine per endpoint) -> registers -> channel signals
-//	  -> convert.Ratio -> quality and flags -> Reading -> publisher queue
+//	line owner (one goroutine per TCP endpoint or RS-485 line) -> register
+//	  blocks -> channel signals, status word, extras -> convert.Chain
+//	  -> quality and flags -> Reading -> publisher queue
 //
 // Polling never waits for the broker: the publisher's queue takes a
 // reading or counts it dropped.
@@ -27,6 +28,7 @@ import (
 
 	"glowgate/bus/modbus"
 	"glowgate/bus/mqtt"
+	"glowgate/convert"
 	"glowgate/daemon/config"
 )
 
@@ -253,17 +255,52 @@ func (d *Daemon) infoMessages() []mqtt.Message {
 	return msgs
 }
 
-// poll runs one line owner per endpoint until ctx is done.
+// bus is one field bus a line owner polls: a Modbus TCP endpoint or an
+// RS-485 line.
+type bus struct {
+	kind, name string // "endpoint" or "line", and its name
+	timeout    time.Duration
+	backoffMax time.Duration
+	open       func() modbus.Reader
+	heads      func(h config.Head) bool
+}
+
+// buses lists the field buses of a configuration.
+func buses(cfg *config.Config, log *slog.Logger) []bus {
+	var out []bus
+	for _, ep := range cfg.Endpoints {
+		out = append(out, bus{
+			kind: "endpoint", name: ep.Name, timeout: ep.Timeout, backoffMax: ep.BackoffMax,
+			open:  func() modbus.Reader { return modbus.NewTCPClient(ep.Address, ep.Timeout) },
+			heads: func(h config.Head) bool { return h.Endpoint == ep.Name },
+		})
+	}
+	for _, l := range cfg.Lines {
+		out = append(out, bus{
+			kind: "line", name: l.Name, timeout: l.Timeout, backoffMax: l.BackoffMax,
+			open: func() modbus.Reader {
+				return modbus.NewRTUClient(modbus.SerialConfig{
+					Device: l.Device, Baud: l.Baud, Parity: l.Parity, StopBits: l.StopBits,
+					Timeout: l.Timeout, Logger: log.With("line", l.Name),
+				})
+			},
+			heads: func(h config.Head) bool { return h.Line == l.Name },
+		})
+	}
+	return out
+}
+
+// poll runs one owner goroutine per field bus until ctx is done.
 func (d *Daemon) poll(ctx context.Context) error {
 	d.mu.Lock()
 	cfg, heads, pub := d.cfg, d.heads, d.pub
 	d.mu.Unlock()
 	topics := mqttTopics(cfg)
 	g, ctx := errgroup.WithContext(ctx)
-	for _, ep := range cfg.Endpoints {
+	for _, b := range buses(cfg, d.log) {
 		var mine []*head
 		for _, h := range heads {
-			if h.endpoint == ep.Name {
+			if b.heads(h.cfg) {
 				mine = append(mine, h)
 			}
 		}
@@ -276,28 +313,27 @@ func (d *Daemon) poll(ctx context.Context) error {
 			polls[i] = h.poll()
 			topicOf[i] = topics.Reading(h.cfg.Name)
 		}
-		signals := make([]float64, 0, 8)
+		scratch := make([]float64, 0, convert.MaxChannels)
 		deliver := func(res modbus.Result) {
 			h := mine[res.Poll]
 			var r mqtt.Reading
 			if res.Err != nil {
 				r = h.failed(res.Time, res.Err)
 			} else {
-				signals = h.decode(res.Registers, signals)
-				r = h.reading(res.Time, signals)
+				r = h.polled(res.Time, res.Blocks, scratch)
 			}
 			d.publish(topicOf[res.Poll], pub, r)
 		}
 		line := modbus.NewLine(modbus.LineConfig{
-			Name:       ep.Name,
-			Timeout:    ep.Timeout,
-			BackoffMax: ep.BackoffMax,
-			Logger:     d.log.With("endpoint", ep.Name),
+			Name:       b.name,
+			Timeout:    b.timeout,
+			BackoffMax: b.backoffMax,
+			Logger:     d.log.With(b.kind, b.name),
 			Now:        d.now,
-		}, modbus.NewTCPClient(ep.Address, ep.Timeout), polls, deliver)
+		}, b.open(), polls, deliver)
 		g.Go(func() error {
 			if err := line.Run(ctx); err != nil && !errors.Is(err, context.Canceled) {
-				return fmt.Errorf("endpoint %s: %w", ep.Name, err)
+				return fmt.Errorf("%s %s: %w", b.kind, b.name, err)
 			}
 			return nil
 		})

@@ -75,7 +75,7 @@ func Demo(ctx context.Context, o DemoOptions) error {
 	fmt.Fprintf(o.Out, "glowgate demo: gateway %s, %d simulated heads\n", cfg.Gateway, len(cfg.Heads))
 	fmt.Fprintf(o.Out, "  broker (embedded): %s\n", broker.Addr())
 	for name, addr := range simulator.Addresses() {
-		fmt.Fprintf(o.Out, "  simulated heads:   modbus tcp %s (endpoint %s)\n", addr, name)
+		fmt.Fprintf(o.Out, "  simulated heads:   %s (%s)\n", addr, name)
 	}
 	fmt.Fprintf(o.Out, "  subscribe with:    mosquitto_sub -h %s -p %s -t '%s/#' -v\n", host, port, cfg.MQTT.Root)
 	fmt.Fprintf(o.Out, "  stop with Ctrl-C\n")

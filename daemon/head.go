@@ -18,9 +18,8 @@ type head struct {
 	cfg      config.Head
 	gateway  string
 	unit     string // "degC" or "K"
-	endpoint string
-	request  modbus.Request
-	fields   []modbus.Field
+	bus      string // the endpoint or line the head hangs on
+	regs     regMap
 	chain    *convert.Chain
 	channels []mqtt.Channel // name and wavelength; values filled per reading
 	pairs    []string       // names of the pair temperatures, "a/b"
@@ -33,7 +32,6 @@ type head struct {
 func newHead(cfg *config.Config, h config.Head) (*head, error) {
 	n := len(h.Channels)
 	models := make([]convert.Model, n)
-	fields := make([]modbus.Field, n)
 	channels := make([]mqtt.Channel, n)
 	saturation := make([]float64, n)
 	for i, ch := range h.Channels {
@@ -41,18 +39,14 @@ func newHead(cfg *config.Config, h config.Head) (*head, error) {
 		if err != nil {
 			return nil, fmt.Errorf("head %s channel %s: %w", h.Name, ch.Name, err)
 		}
-		f, err := signalField(ch.Signal)
-		if err != nil {
-			return nil, fmt.Errorf("head %s channel %s: %w", h.Name, ch.Name, err)
-		}
-		models[i], fields[i], saturation[i] = m, f, ch.Saturation
+		models[i], saturation[i] = m, ch.Saturation
 		channels[i] = mqtt.Channel{Name: ch.Name, WavelengthUM: round(m.Wavelength()*1e6, 6)}
 	}
 	chain, err := convert.NewChain(chainConfig(h, models, saturation))
 	if err != nil {
 		return nil, fmt.Errorf("head %s: %w", h.Name, err)
 	}
-	table, err := modbus.ParseTable(h.Registers)
+	regs, err := newRegMap(h)
 	if err != nil {
 		return nil, fmt.Errorf("head %s: %w", h.Name, err)
 	}
@@ -60,9 +54,8 @@ func newHead(cfg *config.Config, h config.Head) (*head, error) {
 		cfg:      h,
 		gateway:  cfg.Gateway,
 		unit:     cfg.Unit,
-		endpoint: h.Endpoint,
-		request:  blockRequest(h.UnitID, table, fields),
-		fields:   fields,
+		bus:      h.Endpoint + h.Line,
+		regs:     regs,
 		chain:    chain,
 		channels: channels,
 		k:        h.Emissivity[h.Publish.I] / h.Emissivity[h.Publish.J],
@@ -183,35 +176,20 @@ func signalField(s config.Signal) (modbus.Field, error) {
 	return modbus.Field{Address: s.Address, Type: typ, Words: words, Bytes: bytes, Scale: s.Scale, Offset: s.Offset}, nil
 }
 
-// blockRequest is the one read that covers every field of a head. The
-// configuration keeps a head's fields within one block of at most 125
-// registers.
-func blockRequest(unit uint8, table modbus.Table, fields []modbus.Field) modbus.Request {
-	lo, hi := uint32(math.MaxUint32), uint32(0)
-	for _, f := range fields {
-		lo = min(lo, uint32(f.Address))
-		hi = max(hi, uint32(f.Address)+uint32(f.Len()))
-	}
-	return modbus.Request{Unit: unit, Table: table, Address: uint16(lo), Quantity: uint16(hi - lo)}
-}
-
 // poll is the line's schedule entry for this head.
 func (h *head) poll() modbus.Poll {
-	return modbus.Poll{Name: h.cfg.Name, Request: h.request, Period: h.cfg.Period}
+	return modbus.Poll{Name: h.cfg.Name, Requests: h.regs.reads, Period: h.cfg.Period}
 }
 
-// decode reads the channel signals out of a register block. A field that
-// cannot be decoded leaves NaN, which conversion flags as no signal.
-func (h *head) decode(regs []uint16, dst []float64) []float64 {
-	dst = dst[:0]
-	for _, f := range h.fields {
-		v, err := f.Decode(regs, h.request.Address)
-		if err != nil {
-			v = math.NaN()
-		}
-		dst = append(dst, v)
-	}
-	return dst
+// polled converts one poll's register blocks into a Reading: the channel
+// signals, and what the status word and extras say.
+func (h *head) polled(t time.Time, blocks [][]uint16, scratch []float64) mqtt.Reading {
+	r := h.reading(t, h.regs.signals(blocks, scratch))
+	st := h.regs.state(blocks, h.unit)
+	r.Flags = append(r.Flags, st.flags...)
+	r.Extras = st.extras
+	r.Quality, r.StatusCode = stateQuality(st.flags, r.Quality, r.StatusCode)
+	return r
 }
 
 // reading converts the channel signals acquired at t into a Reading. The

@@ -33,6 +33,7 @@ heads:
     uncertainty: {noise: [0.2%%, 0.2%%, 0.2%%], calibration: 2K}
   - name: two
     endpoint: ep
+    unit_id: 2
     period: 100ms
     range: {min: 700degC, max: 1400degC}
     emissivity_ratio: %s

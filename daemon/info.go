@@ -9,25 +9,36 @@ import (
 // info is the retained payload of <root>/<gateway>/<head>/info: what the
 // head is and the settings its readings were converted with.
 type info struct {
-	Gateway         string        `json:"gateway"`
-	Head            string        `json:"head"`
-	Description     string        `json:"description,omitempty"`
-	Endpoint        string        `json:"endpoint"`
-	UnitID          uint8         `json:"unit_id"`
-	PeriodMS        float64       `json:"period_ms"`
-	Unit            string        `json:"unit"`
-	RangeMin        float64       `json:"range_min"`
-	RangeMax        float64       `json:"range_max"`
-	EmissivityRatio float64       `json:"emissivity_ratio"`
-	LowSignal       float64       `json:"low_signal"`
-	C2              float64       `json:"c2"`
-	Channels        []infoChannel `json:"channels"`
-	Publish         string        `json:"publish"`
-	Emissivity      []float64     `json:"emissivity,omitempty"`
-	NongreyLimit    float64       `json:"nongrey_limit,omitempty"`
-	Processing      infoProcess   `json:"processing"`
-	Uncertainty     infoUncert    `json:"uncertainty"`
-	Version         string        `json:"version"`
+	Gateway         string         `json:"gateway"`
+	Head            string         `json:"head"`
+	Description     string         `json:"description,omitempty"`
+	Endpoint        string         `json:"endpoint,omitempty"`
+	Line            string         `json:"line,omitempty"`
+	Status          map[int]string `json:"status_bits,omitempty"`
+	Extras          []infoExtra    `json:"extras,omitempty"`
+	UnitID          uint8          `json:"unit_id"`
+	PeriodMS        float64        `json:"period_ms"`
+	Unit            string         `json:"unit"`
+	RangeMin        float64        `json:"range_min"`
+	RangeMax        float64        `json:"range_max"`
+	EmissivityRatio float64        `json:"emissivity_ratio"`
+	LowSignal       float64        `json:"low_signal"`
+	C2              float64        `json:"c2"`
+	Channels        []infoChannel  `json:"channels"`
+	Publish         string         `json:"publish"`
+	Emissivity      []float64      `json:"emissivity,omitempty"`
+	NongreyLimit    float64        `json:"nongrey_limit,omitempty"`
+	Processing      infoProcess    `json:"processing"`
+	Uncertainty     infoUncert     `json:"uncertainty"`
+	Version         string         `json:"version"`
+}
+
+type infoExtra struct {
+	Name      string   `json:"name"`
+	Kind      string   `json:"kind"`
+	WarnAbove *float64 `json:"warn_above,omitempty"` // in the reading's unit
+	Expect    *float64 `json:"expect,omitempty"`
+	Tolerance *float64 `json:"tolerance,omitempty"`
 }
 
 type infoProcess struct {
@@ -80,6 +91,7 @@ func (h *head) infoPayload(version string) []byte {
 		Head:            c.Name,
 		Description:     c.Description,
 		Endpoint:        c.Endpoint,
+		Line:            c.Line,
 		UnitID:          c.UnitID,
 		PeriodMS:        float64(c.Period.Microseconds()) / 1e3,
 		Unit:            h.unit,
@@ -111,6 +123,20 @@ func (h *head) infoPayload(version string) []byte {
 	}
 	if len(c.Channels) > 2 {
 		in.Emissivity = c.Emissivity
+	}
+	if c.Status != nil {
+		in.Status = c.Status.Bits
+	}
+	for _, e := range c.Extras {
+		ie := infoExtra{Name: e.Name, Kind: e.Kind}
+		if e.WarnAbove > 0 {
+			w := *h.temperature(e.WarnAbove)
+			ie.WarnAbove = &w
+		}
+		if e.Kind == "setting" {
+			ie.Expect, ie.Tolerance = &e.Expect, &e.Tolerance
+		}
+		in.Extras = append(in.Extras, ie)
 	}
 	for _, ch := range c.Channels {
 		ic := infoChannel{Name: ch.Name, WavelengthUM: round(ch.Wavelength()*1e6, 6)}

@@ -23,6 +23,7 @@ const (
 	statusUncertainLastUsableValue          uint32 = 0x40900000
 	statusUncertainSensorNotAccurate        uint32 = 0x40930000
 	statusUncertainEngineeringUnitsExceeded uint32 = 0x40940000
+	statusUncertainSensorCalibration        uint32 = 0x420A0000
 )
 
 // conversionQuality grades a reading from its flags, its raw (published)
@@ -82,4 +83,36 @@ func commStatus(err error) uint32 {
 		return statusBadNotConnected
 	}
 	return statusBadCommunicationError
+}
+
+// stateQuality worsens a reading's grade by what its head says of itself:
+//
+//	head_fault          bad        BadDeviceFailure
+//	detector_saturated  bad        BadOutOfRange
+//	aiming_light,
+//	head_too_warm       uncertain  UncertainSensorNotAccurate
+//	setting_mismatch    uncertain  UncertainSensorCalibration
+//	window_dirty        (a flag only: the ratio holds through a grey loss)
+//
+// A grade only ever gets worse; between equals the first cause stays.
+func stateQuality(flags []string, quality string, status uint32) (string, uint32) {
+	rank := map[string]int{"good": 0, "uncertain": 1, "bad": 2}
+	worsen := func(q string, s uint32) {
+		if rank[q] > rank[quality] {
+			quality, status = q, s
+		}
+	}
+	for _, f := range flags {
+		switch f {
+		case "head_fault":
+			worsen("bad", statusBadDeviceFailure)
+		case "detector_saturated":
+			worsen("bad", statusBadOutOfRange)
+		case "aiming_light", "head_too_warm":
+			worsen("uncertain", statusUncertainSensorNotAccurate)
+		case "setting_mismatch":
+			worsen("uncertain", statusUncertainSensorCalibration)
+		}
+	}
+	return quality, status
 }

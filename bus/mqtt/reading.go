@@ -33,6 +33,7 @@ type Reading struct {
 	FitResidual      *float64          `json:"fit_residual,omitempty"`
 	FitTemperature   *float64          `json:"fit_temperature,omitempty"`
 	EmissivitySlope  *float64          `json:"emissivity_slope,omitempty"`
+	Extras           []NamedValue      `json:"extras,omitempty"`
 	Uncertainty      *float64          `json:"uncertainty"`
 	Quality          string            `json:"quality"`
 	StatusCode       uint32            `json:"status_code"`
@@ -47,6 +48,13 @@ type Channel struct {
 	Signal                *float64 `json:"signal"`
 	SignalFraction        *float64 `json:"signal_fraction"`
 	BrightnessTemperature *float64 `json:"brightness_temperature"`
+}
+
+// NamedValue is one of a head's extra values (its internal temperature, a
+// setting read back), named as in the configuration.
+type NamedValue struct {
+	Name  string   `json:"name"`
+	Value *float64 `json:"value"`
 }
 
 // PairTemperature is the ratio temperature of one pair of channels, named
@@ -147,6 +155,20 @@ func (r *Reading) AppendJSON(dst []byte) []byte {
 	if finite(r.EmissivitySlope) {
 		dst = append(dst, `,"emissivity_slope":`...)
 		dst = appendFloat(dst, *r.EmissivitySlope)
+	}
+	if len(r.Extras) > 0 {
+		dst = append(dst, `,"extras":[`...)
+		for i := range r.Extras {
+			if i > 0 {
+				dst = append(dst, ',')
+			}
+			dst = append(dst, `{"name":`...)
+			dst = appendString(dst, r.Extras[i].Name)
+			dst = append(dst, `,"value":`...)
+			dst = appendFloatPtr(dst, r.Extras[i].Value)
+			dst = append(dst, '}')
+		}
+		dst = append(dst, ']')
 	}
 	dst = append(dst, `,"uncertainty":`...)
 	dst = appendFloatPtr(dst, r.Uncertainty)

@@ -32,6 +32,7 @@ type refReading struct {
 	FitResidual      *float64               `json:"fit_residual,omitempty"`
 	FitTemperature   *float64               `json:"fit_temperature,omitempty"`
 	EmissivitySlope  *float64               `json:"emissivity_slope,omitempty"`
+	Extras           []mqtt.NamedValue      `json:"extras,omitempty"`
 	Uncertainty      *float64               `json:"uncertainty"`
 	Quality          string                 `json:"quality"`
 	StatusCode       uint32                 `json:"status_code"`
@@ -66,6 +67,7 @@ func toRef(r *mqtt.Reading) refReading {
 		Unit: r.Unit, Ratio: fin(r.Ratio), EmissivityRatio: fin(&r.EmissivityRatio),
 		Channels: []refChannel{}, Nongrey: fin(r.Nongrey), FitResidual: fin(r.FitResidual),
 		FitTemperature: fin(r.FitTemperature), EmissivitySlope: fin(r.EmissivitySlope),
+		Extras:      extrasRef(r.Extras),
 		Uncertainty: fin(r.Uncertainty), Quality: r.Quality, StatusCode: r.StatusCode,
 		Flags: []string{}, Replayed: r.Replayed,
 	}
@@ -96,6 +98,7 @@ func sampleReading() mqtt.Reading {
 		},
 		PairTemperatures: []mqtt.PairTemperature{{Pair: "ch1/ch2", Temperature: f(1523.4)}, {Pair: "ch2/ch3", Temperature: nil}},
 		Nongrey:          f(3.5), FitResidual: f(0.0012), FitTemperature: f(1519.8), EmissivitySlope: f(-0.21),
+		Extras:      []mqtt.NamedValue{{Name: "head_temperature", Value: f(41.5)}, {Name: "setting", Value: nil}},
 		Uncertainty: f(4.8), Quality: "uncertain", StatusCode: 0x40930000,
 		Flags: []string{"nongrey"}, Replayed: true,
 	}
@@ -111,7 +114,7 @@ func TestReadingJSONLiteral(t *testing.T) {
 		`{"name":"ch2","wavelength_um":0.9,"signal":33012,"signal_fraction":0.64,"brightness_temperature":1479.9},` +
 		`{"name":"ch3","wavelength_um":1.05,"signal":null,"signal_fraction":null,"brightness_temperature":null}],` +
 		`"pair_temperatures":[{"pair":"ch1/ch2","temperature":1523.4},{"pair":"ch2/ch3","temperature":null}],` +
-		`"nongrey":3.5,"fit_residual":0.0012,"fit_temperature":1519.8,"emissivity_slope":-0.21,"uncertainty":4.8,"quality":"uncertain","status_code":1083375616,` +
+		`"nongrey":3.5,"fit_residual":0.0012,"fit_temperature":1519.8,"emissivity_slope":-0.21,"extras":[{"name":"head_temperature","value":41.5},{"name":"setting","value":null}],"uncertainty":4.8,"quality":"uncertain","status_code":1083375616,` +
 		`"flags":["nongrey"],"replayed":true}`
 	if got := string(r.AppendJSON(nil)); got != want {
 		t.Errorf("AppendJSON:\n got %s\nwant %s", got, want)
@@ -290,4 +293,15 @@ func BenchmarkReadingEncodingJSON(b *testing.B) {
 			b.Fatal(err)
 		}
 	}
+}
+
+func extrasRef(xs []mqtt.NamedValue) []mqtt.NamedValue {
+	if len(xs) == 0 {
+		return nil
+	}
+	out := make([]mqtt.NamedValue, len(xs))
+	for i, x := range xs {
+		out[i] = mqtt.NamedValue{Name: x.Name, Value: fin(x.Value)}
+	}
+	return out
 }

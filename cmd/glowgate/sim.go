@@ -3,14 +3,18 @@ package main
 import (
 	"context"
 	"fmt"
+	"maps"
+	"slices"
 
 	"glowgate/daemon"
 )
 
 func simCmd(ctx context.Context, e *env, args []string) error {
 	fs := newFlags("sim", "-config FILE",
-		"Serves every head of the configuration over Modbus TCP at the endpoints it names,\n"+
-			"with signals from the heads' channel models following each head's sim scenario.", e.stderr)
+		"Serves every head of the configuration with signals from the heads' channel models\n"+
+			"following each head's sim scenario: over Modbus TCP at each endpoint, and over Modbus\n"+
+			"RTU on a pseudo-terminal for each line, linked at the line's device path and paced\n"+
+			"like its baud rate. Faults, status bits and extra values follow the scenario too.", e.stderr)
 	path := fs.String("config", "", "configuration file (YAML)")
 	var lf logFlags
 	lf.register(fs, "info")
@@ -33,8 +37,10 @@ func simCmd(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	defer s.Close()
-	for name, addr := range s.Addresses() {
-		fmt.Fprintf(e.stdout, "serving endpoint %s on modbus tcp %s\n", name, addr)
+	addrs := s.Addresses()
+	names := slices.Sorted(maps.Keys(addrs))
+	for _, name := range names {
+		fmt.Fprintf(e.stdout, "serving %s on %s\n", name, addrs[name])
 	}
 	<-ctx.Done()
 	return nil

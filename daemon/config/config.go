@@ -19,6 +19,7 @@ type Config struct {
 	C2Name    string  // "its90" (default) or "codata2018"
 	MQTT      MQTT
 	Endpoints []Endpoint
+	Lines     []Line
 	Heads     []Head
 }
 
@@ -45,7 +46,8 @@ type Endpoint struct {
 // Head is one pyrometer head.
 type Head struct {
 	Name            string
-	Endpoint        string // the name of an Endpoint of the same Config
+	Endpoint        string // the name of an Endpoint of the same Config, or
+	Line            string // the name of a Line (exactly one of the two is set)
 	UnitID          uint8
 	Registers       string // "input" or "holding"
 	Period          time.Duration
@@ -65,6 +67,8 @@ type Head struct {
 	Processing   Processing
 	Loss         Loss
 	Uncertainty  Uncertainty
+	Status       *Status // optional status word
+	Extras       []Extra // optional extra values
 	Sim          Sim
 }
 
@@ -114,6 +118,9 @@ type Sim struct {
 	Emissivity   []float64 // per channel, in (0, 1]
 	Temperature  Profile   // target temperature, K
 	Transmission Profile   // sight-path transmission, fraction 0..1
+	Faults       []Fault
+	StatusFlags  []BitEpisode       // status-word flags set for windows of time
+	Extras       map[string]Profile // values of the head's extras, by name
 }
 
 // Profile is a value over time: Start, then each segment in turn; with

@@ -361,7 +361,7 @@ heads:
 `
 	// templates is no schema key: the merge works, the extra key is refused.
 	_, err := Parse("aliases.yaml", []byte(doc))
-	if err == nil || err.Error() != "aliases.yaml:4: templates: unknown key (want gateway, unit, c2, mqtt, endpoints or heads)" {
+	if err == nil || err.Error() != "aliases.yaml:4: templates: unknown key (want gateway, unit, c2, mqtt, endpoints, lines or heads)" {
 		t.Fatalf("got %v", err)
 	}
 	const ok = `

@@ -51,7 +51,7 @@ func (d *decoder) config(root val) *Config {
 			Queue:          defaultQueue,
 		},
 	}
-	f := d.fields(root, "gateway", "unit", "c2", "mqtt", "endpoints", "heads")
+	f := d.fields(root, "gateway", "unit", "c2", "mqtt", "endpoints", "lines", "heads")
 	if v := f.required("gateway"); v.n != nil {
 		if s, ok := d.str(v); ok && d.topicLevel(v, s, false) {
 			c.Gateway = s
@@ -82,6 +82,9 @@ func (d *decoder) config(root val) *Config {
 	}
 	d.c2 = c.C2
 	d.mqtt(f.get("mqtt"), &c.MQTT)
+	for _, it := range d.list(f.get("lines")) {
+		c.Lines = append(c.Lines, d.serialLine(it))
+	}
 	for _, it := range d.list(f.get("endpoints")) {
 		c.Endpoints = append(c.Endpoints, d.endpoint(it))
 	}
@@ -220,7 +223,7 @@ func (d *decoder) head(v val) Head {
 		d.errorf(v, "empty entry (want a head mapping)")
 		return h
 	}
-	f := d.fields(v, "name", "endpoint", "unit_id", "registers", "period", "range",
+	f := d.fields(v, "name", "endpoint", "line", "unit_id", "registers", "period", "range", "status", "extras",
 		"emissivity_ratio", "emissivity", "low_signal", "description", "channels",
 		"publish", "nongrey_limit", "fit_terms", "processing", "loss", "uncertainty", "sim")
 	if v := f.required("name"); v.n != nil {
@@ -228,14 +231,28 @@ func (d *decoder) head(v val) Head {
 			h.Name = s
 		}
 	}
-	if v := f.required("endpoint"); v.n != nil {
-		if s, ok := d.str(v); ok {
+	ep, ln := f.get("endpoint"), f.get("line")
+	switch {
+	case ep.n != nil && ln.n != nil:
+		d.errorf(ln, "a head hangs on an endpoint or a line, not both")
+	case ep.n != nil:
+		if s, ok := d.str(ep); ok {
 			if s == "" {
-				d.errorf(v, "must not be empty")
+				d.errorf(ep, "must not be empty")
 			} else {
 				h.Endpoint = s
 			}
 		}
+	case ln.n != nil:
+		if s, ok := d.str(ln); ok {
+			if s == "" {
+				d.errorf(ln, "must not be empty")
+			} else {
+				h.Line = s
+			}
+		}
+	case f.ok:
+		d.errorf(v, "needs endpoint (Modbus TCP) or line (RS-485)")
 	}
 	if v := f.get("unit_id"); v.n != nil {
 		// Modbus unit (slave) addresses 1..247, 0 for broadcast; a TCP
@@ -299,6 +316,12 @@ func (d *decoder) head(v val) Head {
 		d.errorf(chv, "want 2 to %d channels, have %d", maxChannels, len(items))
 	}
 	d.radiometry(f, &h)
+	if sv := f.get("status"); sv.n != nil {
+		h.Status = d.status(sv)
+	}
+	for _, it := range d.list(f.get("extras")) {
+		h.Extras = append(h.Extras, d.extra(it))
+	}
 	d.sim(f.get("sim"), &h)
 	return h
 }
@@ -480,7 +503,22 @@ func (d *decoder) sim(v val, h *Head) {
 		return
 	}
 	h.Sim.Set = true
-	f := d.fields(v, "seed", "noise", "emissivity", "temperature", "transmission")
+	f := d.fields(v, "seed", "noise", "emissivity", "temperature", "transmission", "faults", "status", "extras")
+	h.Sim.Faults = d.faults(f.get("faults"))
+	h.Sim.StatusFlags = d.episodes(f.get("status"))
+	if ev := f.get("extras"); ev.n != nil {
+		names := make([]string, 0, len(h.Extras))
+		for _, e := range h.Extras {
+			names = append(names, e.Name)
+		}
+		xf := d.fields(ev, names...)
+		h.Sim.Extras = map[string]Profile{}
+		for name, pv := range xf.vals {
+			var p Profile
+			d.profile(pv, &p, d.number)
+			h.Sim.Extras[name] = p
+		}
+	}
 	if v := f.get("seed"); v.n != nil {
 		if x, ok := d.integer(v, math.MinInt64, math.MaxInt64); ok {
 			h.Sim.Seed = x
