@@ -602,6 +602,10 @@ func (t *rtuTransport) recv(ctx context.Context, p []byte, until time.Time) (int
 }
 
 // waitGap waits until t3.5 has passed since the last byte on the line.
+// maxExactWait is the longest inter-frame wait slept with sleepExact
+// rather than a cancellable timer: t3.5 at 9600 baud is 4 ms.
+const maxExactWait = 5 * time.Millisecond
+
 func (t *rtuTransport) waitGap(ctx context.Context) error {
 	wait := time.Until(t.lastByte.Add(t.gap))
 	if wait <= 0 {
@@ -609,6 +613,14 @@ func (t *rtuTransport) waitGap(ctx context.Context) error {
 	}
 	if !t.deadline.IsZero() && time.Until(t.deadline) < wait {
 		return fmt.Errorf("%w: %s: no time left for the inter-frame gap", ErrTimeout, t.device)
+	}
+	if wait <= maxExactWait {
+		// t3.5 itself: a few milliseconds at most, slept exactly.
+		sleepExact(wait)
+		if err := ctx.Err(); err != nil {
+			return t.ctxErr(ctx, err, "before sending")
+		}
+		return nil
 	}
 	if t.timer == nil {
 		t.timer = time.NewTimer(wait)
