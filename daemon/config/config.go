@@ -17,6 +17,8 @@ type Config struct {
 	Unit      string  // "degC" or "K": the unit readings are published in
 	C2        float64 // second radiation constant of every channel model, m·K
 	C2Name    string  // "its90" (default) or "codata2018"
+	StateDir  string  // durable state (outbox, alarm states); empty: none, readings wait in memory
+	Commands  Commands
 	MQTT      MQTT
 	Endpoints []Endpoint
 	Lines     []Line
@@ -32,6 +34,12 @@ type MQTT struct {
 	ConnectTimeout time.Duration
 	Queue          int // in-memory publish queue length
 	Username       string
+	// Password comes from password_file or password_env, never from the
+	// configuration itself; it is never logged or printed.
+	Password               string
+	AllowPlaintextPassword bool
+	TLS                    *TLS // nil: plain TCP (or the URL's scheme)
+	Outbox                 Outbox
 }
 
 // Endpoint is one Modbus TCP endpoint (a head's own port or a serial

@@ -212,17 +212,19 @@ func TestDefaults(t *testing.T) {
 		t.Fatal(err)
 	}
 	want := &Config{
-		File:    "minimal.yaml",
-		Gateway: "gw",
-		Unit:    "degC",
-		C2:      0.014388, // ITS-90 (Preston-Thomas, Metrologia 27, 3, 1990)
-		C2Name:  "its90",
+		File:     "minimal.yaml",
+		Gateway:  "gw",
+		Unit:     "degC",
+		C2:       0.014388, // ITS-90 (Preston-Thomas, Metrologia 27, 3, 1990)
+		C2Name:   "its90",
+		Commands: Commands{Enabled: true, ReplayWindow: 30 * time.Second},
 		MQTT: MQTT{
 			Root:           "glowgate",
 			ClientID:       "glowgate-gw",
 			KeepAlive:      30 * time.Second,
 			ConnectTimeout: 5 * time.Second,
 			Queue:          10000,
+			Outbox:         Outbox{MaxEntries: 1000000, CommitInterval: 50 * time.Millisecond},
 		},
 		Endpoints: []Endpoint{{Name: "net", Address: "127.0.0.1:502", Timeout: 500 * time.Millisecond, BackoffMax: 10 * time.Second}},
 		Heads: []Head{{
@@ -279,6 +281,7 @@ func TestEveryField(t *testing.T) {
 		ConnectTimeout: 1500 * time.Millisecond,
 		Queue:          500,
 		Username:       "kiln",
+		Outbox:         Outbox{MaxEntries: 1000000, CommitInterval: 50 * time.Millisecond},
 	}
 	if !reflect.DeepEqual(m, wantMQTT) {
 		t.Errorf("mqtt %+v\nwant %+v", m, wantMQTT)
@@ -361,7 +364,7 @@ heads:
 `
 	// templates is no schema key: the merge works, the extra key is refused.
 	_, err := Parse("aliases.yaml", []byte(doc))
-	if err == nil || err.Error() != "aliases.yaml:4: templates: unknown key (want gateway, unit, c2, mqtt, endpoints, lines or heads)" {
+	if err == nil || err.Error() != "aliases.yaml:4: templates: unknown key (want gateway, unit, c2, state_dir, mqtt, commands, endpoints, lines or heads)" {
 		t.Fatalf("got %v", err)
 	}
 	const ok = `

@@ -51,7 +51,9 @@ func (d *decoder) config(root val) *Config {
 			Queue:          defaultQueue,
 		},
 	}
-	f := d.fields(root, "gateway", "unit", "c2", "mqtt", "endpoints", "lines", "heads")
+	f := d.fields(root, "gateway", "unit", "c2", "state_dir", "mqtt", "commands", "endpoints", "lines", "heads")
+	c.StateDir = d.stateDir(f.get("state_dir"))
+	c.Commands = d.commands(f.get("commands"))
 	if v := f.required("gateway"); v.n != nil {
 		if s, ok := d.str(v); ok && d.topicLevel(v, s, false) {
 			c.Gateway = s
@@ -103,7 +105,9 @@ func (d *decoder) config(root val) *Config {
 }
 
 func (d *decoder) mqtt(v val, m *MQTT) {
-	f := d.fields(v, "brokers", "root", "client_id", "keepalive", "connect_timeout", "queue", "username")
+	f := d.fields(v, "brokers", "root", "client_id", "keepalive", "connect_timeout", "queue", "username",
+		"password_file", "password_env", "allow_plaintext_password", "tls", "outbox")
+	defer d.delivery(f, m)
 	if bv := f.get("brokers"); bv.n != nil && bv.n.Kind == yaml.ScalarNode {
 		d.errorf(bv, "want a list such as [tcp://127.0.0.1:1883], not %s", describe(bv.n))
 	} else {
