@@ -60,6 +60,7 @@ type Daemon struct {
 	heads  []*head
 	latest map[string]mqtt.Reading
 	pub    *mqtt.Publisher
+	gate   *commandGate // nil: commands are off
 }
 
 // New checks that every head of the configuration can be built.
@@ -78,6 +79,9 @@ func New(o Options) (*Daemon, error) {
 		return nil, err
 	}
 	d := &Daemon{opts: o, log: o.Logger, now: o.Now, cfg: o.Config, heads: heads, latest: map[string]mqtt.Reading{}}
+	if c := o.Config.Commands; c.Enabled {
+		d.gate = newCommandGate(c.Secret, c.ReplayWindow)
+	}
 	// Sequence numbers start at the wall clock in microseconds, so that
 	// they keep increasing across restarts as long as the clock does and
 	// fewer than a million readings a second are made.
@@ -354,6 +358,13 @@ func (d *Daemon) publish(topic string, pub *mqtt.Publisher, r mqtt.Reading) {
 	d.mu.Lock()
 	d.latest[r.Head] = r
 	d.mu.Unlock()
+}
+
+// config returns the running configuration.
+func (d *Daemon) config() *config.Config {
+	d.mu.Lock()
+	defer d.mu.Unlock()
+	return d.cfg
 }
 
 // Latest returns the most recent reading of every head, by head name.
