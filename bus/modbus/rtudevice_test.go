@@ -138,13 +138,19 @@ func (d *rtuDevice) next() (rtuReq, bool) {
 }
 
 // write sends one frame as is.
+//
+// The answer is stamped just before the write: on a pty the reader can
+// take the bytes, and start its t3.5, before Write returns, so a stamp
+// taken after it can fall behind the true end of the frame by however
+// long this goroutine waits for the CPU, and the silence measured from it
+// would come out short on a loaded machine.
 func (d *rtuDevice) write(frame []byte) {
-	if _, err := d.f.Write(frame); err != nil && !errors.Is(err, os.ErrClosed) && !errors.Is(err, syscall.EIO) {
-		d.t.Errorf("device: write: %v", err)
-	}
 	d.mu.Lock()
 	d.answered[len(d.answered)-1] = time.Now()
 	d.mu.Unlock()
+	if _, err := d.f.Write(frame); err != nil && !errors.Is(err, os.ErrClosed) && !errors.Is(err, syscall.EIO) {
+		d.t.Errorf("device: write: %v", err)
+	}
 }
 
 // testCRC is CRC-16/MODBUS computed bit by bit as Modbus over Serial Line

@@ -3,6 +3,7 @@ package mqtt
 import (
 	"context"
 	"crypto/tls"
+	"crypto/x509"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -15,6 +16,7 @@ import (
 	"unicode/utf8"
 
 	paho "github.com/eclipse/paho.mqtt.golang"
+	"github.com/eclipse/paho.mqtt.golang/packets"
 )
 
 // Message is one publication. Every message goes out at QoS 1.
@@ -51,8 +53,14 @@ type Options struct {
 	// the same identifier push each other off the broker.
 	ClientID           string
 	Username, Password string
-	// TLS configures ssl://, tls:// and wss:// connections; nil uses the
-	// system roots.
+	// TLS configures ssl://, tls://, mqtts://, tcps:// and wss://
+	// connections; nil uses the system roots (see TLSConfig). When TLS is
+	// set, every broker must use one of these schemes: a plaintext URL is
+	// refused rather than used without TLS. A broker whose certificate
+	// fails verification is never contacted without TLS either: the
+	// failure is logged as an error and the next attempt uses TLS again.
+	// The password is never logged, nor is the user information of a
+	// broker URL.
 	TLS *tls.Config
 	// KeepAlive is the MQTT keep-alive interval, whole seconds (default
 	// 30 s). ConnectTimeout bounds one connection attempt, a stalled
@@ -76,9 +84,11 @@ type Options struct {
 	// from Run's goroutine.
 	OnConnect func() []Message
 	// OnAck, when set, is called from Run's goroutine with each queued
-	// message once the broker has acknowledged it (PUBACK), in queue order.
-	// It must not block. A message may be acknowledged twice when the
-	// connection broke after the broker got it and before its PUBACK came.
+	// message and each outbox entry (as sent: a backlog reading marked
+	// replayed) once the broker has acknowledged it (PUBACK), queued
+	// messages in queue order. It must not block. A message may be
+	// acknowledged twice when the connection broke after the broker got it
+	// and before its PUBACK came.
 	OnAck func(Message)
 	// FlushTimeout bounds the delivery of what is queued when Run's
 	// context ends (default 5 s).
@@ -90,7 +100,40 @@ type Options struct {
 	// Logger receives connection changes and rate-limited drop reports;
 	// nil discards them.
 	Logger *slog.Logger
+
+	// Outbox, when set, is drained at QoS 1 beside the in-memory queue
+	// (which keeps carrying what Publish is given: info and retained
+	// states). Each outbox entry is deleted from the outbox once a broker
+	// has acknowledged it (PUBACK), so a crash or a broken connection can
+	// make an entry arrive twice but never lose it.
+	//
+	// Entries appended before the current connection came up are the
+	// backlog; later ones are live. Live entries are sent first, and the
+	// backlog drains beside them with at least a quarter of the window,
+	// so current readings reach the broker at once after a reconnection
+	// however long the backlog. Each part goes out in sequence order.
+	// A backlog reading is sent with "replayed":true: its stored payload
+	// ends with `"replayed":false}` (Reading.AppendJSON writes that field
+	// last), and the publisher rewrites those bytes; other payloads go out
+	// as stored.
+	//
+	// The outbox must stay open until Run returns.
+	Outbox *Outbox
+
+	// CommandTopic, when set, is subscribed at QoS 1 on every connection,
+	// and each message received on it is handed to OnCommand, which is
+	// required then. OnCommand runs on one goroutine owned by Run, one
+	// command at a time, with a copy of the payload; up to 64 commands
+	// wait for it, and further ones are dropped and logged. Retained
+	// messages on the topic are ignored: a stale command must not run
+	// again at every connection. Run waits for OnCommand to return before
+	// it returns.
+	CommandTopic string
+	OnCommand    func(payload []byte)
 }
+
+// commandBuffer is the number of received commands waiting for OnCommand.
+const commandBuffer = 64
 
 // Stats is a snapshot of a Publisher's counters.
 type Stats struct {
@@ -102,6 +145,12 @@ type Stats struct {
 	Connects  uint64 // successful connections
 	Connected bool
 	Broker    string // broker of the current connection, "" when disconnected
+
+	OutboxAcked uint64 // outbox entries acknowledged by a broker
+	Replayed    uint64 // the backlog entries among them
+
+	Commands        uint64 // commands received and handed to OnCommand
+	CommandsDropped uint64 // commands dropped because OnCommand was behind
 }
 
 // Publisher delivers messages to an MQTT broker at QoS 1 over a connection
@@ -136,6 +185,15 @@ type Publisher struct {
 	connCh    chan struct{} // closed while connected
 	dropLog   limiter
 	rejectLog limiter
+	readLog   limiter
+
+	outboxAcked uint64
+	replayed    uint64
+
+	cmds            chan []byte // received commands, for OnCommand
+	commands        uint64
+	commandsDropped uint64
+	cmdLog          limiter
 }
 
 // NewPublisher checks o, fills in defaults and returns a Publisher that
@@ -156,6 +214,9 @@ func NewPublisher(o Options) (*Publisher, error) {
 		connCh:    make(chan struct{}),
 		dropLog:   limiter{period: 10 * time.Second},
 		rejectLog: limiter{period: 10 * time.Second},
+		readLog:   limiter{period: time.Minute},
+		cmds:      make(chan []byte, commandBuffer),
+		cmdLog:    limiter{period: 10 * time.Second},
 	}, nil
 }
 
@@ -166,15 +227,33 @@ func (o *Options) fill() error {
 	for i, b := range o.Brokers {
 		u, err := url.Parse(b)
 		if err != nil {
-			return fmt.Errorf("broker %d %q: %w", i+1, b, err)
+			// url.Error repeats the URL, password included.
+			var ue *url.Error
+			if errors.As(err, &ue) {
+				err = ue.Err
+			}
+			return fmt.Errorf("broker %d: not a URL: %w", i+1, err)
 		}
 		switch u.Scheme {
-		case "tcp", "mqtt", "ssl", "tls", "mqtts", "tcps", "ws", "wss":
+		case "tcp", "mqtt", "ws":
+			if o.TLS != nil {
+				return fmt.Errorf("broker %d %s: TLS is configured but scheme %q is plaintext; use ssl:// (or wss://)",
+					i+1, u.Redacted(), u.Scheme)
+			}
+		case "ssl", "tls", "mqtts", "tcps", "wss":
 		default:
-			return fmt.Errorf("broker %d %q: scheme %q, want tcp, mqtt, ssl, tls, mqtts, tcps, ws or wss", i+1, b, u.Scheme)
+			return fmt.Errorf("broker %d %s: scheme %q, want tcp, mqtt, ssl, tls, mqtts, tcps, ws or wss", i+1, u.Redacted(), u.Scheme)
 		}
 		if u.Host == "" {
-			return fmt.Errorf("broker %d %q: no host", i+1, b)
+			return fmt.Errorf("broker %d %s: no host", i+1, u.Redacted())
+		}
+	}
+	if o.CommandTopic != "" {
+		if err := checkPublishTopic(o.CommandTopic); err != nil {
+			return fmt.Errorf("command topic: %w", err)
+		}
+		if o.OnCommand == nil {
+			return errors.New("command topic set without OnCommand")
 		}
 	}
 	if !utf8.ValidString(o.ClientID) || len(o.ClientID) > maxTopicLen {
@@ -309,6 +388,11 @@ func (p *Publisher) Stats() Stats {
 		Connects:  p.connects,
 		Connected: p.connected,
 		Broker:    p.broker,
+
+		OutboxAcked:     p.outboxAcked,
+		Replayed:        p.replayed,
+		Commands:        p.commands,
+		CommandsDropped: p.commandsDropped,
 	}
 }
 
@@ -336,6 +420,19 @@ func (p *Publisher) Run(ctx context.Context) error {
 		return errors.New("mqtt publisher: Run already running")
 	}
 	defer p.running.Store(false)
+	if p.o.OnCommand != nil {
+		cctx, cancel := context.WithCancel(context.Background())
+		var wg sync.WaitGroup
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			p.runCommands(cctx)
+		}()
+		defer func() {
+			cancel()
+			wg.Wait()
+		}()
+	}
 	var (
 		l    *link
 		next int // index of the broker to try next
@@ -410,6 +507,9 @@ func (p *Publisher) shutdown(l *link, next int) {
 	p.mu.Lock()
 	p.q.unsendAll() // unacknowledged: to be sent again by a later Run
 	p.mu.Unlock()
+	if p.o.Outbox != nil {
+		p.o.Outbox.release()
+	}
 	if n := p.Stats().Queued; n > 0 {
 		p.log.Warn("mqtt publisher stopped with messages undelivered", "queued", n, "flush_timeout", p.o.FlushTimeout)
 	} else {
@@ -438,17 +538,37 @@ type link struct {
 	n       int       // handed out, not yet completed
 	head    pending   // oldest token taken from toks, when hasHead
 	hasHead bool
+
+	// The outbox, when there is one: entries up to boundary (the last
+	// assigned when the connection came up) are the backlog, read from
+	// backNext; later ones are live, read from liveNext.
+	boundary, liveNext, backNext uint64
+	backDone                     bool
+	liveN, backN                 int // in flight
+	replayed                     int // backlog entries handed out
 }
 
+// source says where a message handed to the writer came from.
+type source uint8
+
+const (
+	fromConnect source = iota // Online and OnConnect
+	fromQueue
+	fromLive    // outbox, appended after the connection came up
+	fromBacklog // outbox, appended before
+)
+
 type outgoing struct {
-	m      Message
-	queued bool // from the queue (not Online or OnConnect)
+	m   Message
+	src source
+	seq uint64 // outbox entries
 }
 
 type pending struct {
-	tok    paho.Token
-	queued bool
-	topic  string
+	tok paho.Token
+	m   Message
+	src source
+	seq uint64
 }
 
 // write publishes what serve hands out until the link is given up.
@@ -461,7 +581,7 @@ func (p *Publisher) write(l *link) {
 		case o := <-l.out:
 			tok := l.c.Publish(o.m.Topic, 1, o.m.Retain, o.m.Payload)
 			select {
-			case l.toks <- pending{tok: tok, queued: o.queued, topic: o.m.Topic}:
+			case l.toks <- pending{tok: tok, m: o.m, src: o.src, seq: o.seq}:
 			case <-l.dead:
 				return
 			}
@@ -469,11 +589,12 @@ func (p *Publisher) write(l *link) {
 	}
 }
 
-// connect opens a connection to broker with a new paho client and waits
-// for the CONNACK, at most timeout.
+// connect opens a connection to broker with a new paho client, waits for
+// the CONNACK, at most timeout, and subscribes to CommandTopic.
 func (p *Publisher) connect(broker string, timeout time.Duration, fail *limiter) (*link, error) {
+	shown := redact(broker)
 	l := &link{
-		broker: broker,
+		broker: shown,
 		lost:   make(chan error, 1),
 		out:    make(chan outgoing, p.o.Window),
 		toks:   make(chan pending, p.o.Window),
@@ -511,30 +632,89 @@ func (p *Publisher) connect(broker string, timeout time.Duration, fail *limiter)
 	tok := c.Connect()
 	<-tok.Done()
 	if err := tok.Error(); err != nil {
-		if logIt, held := fail.allow(time.Now()); logIt {
-			p.log.Warn("mqtt connect failed", "broker", broker, "err", err, "failures_since_last_report", held)
+		p.logConnectError(shown, err, fail)
+		return nil, fmt.Errorf("connect %s: %w", shown, err)
+	}
+	if p.o.CommandTopic != "" {
+		if err := p.subscribeCommands(c, timeout); err != nil {
+			c.Disconnect(0)
+			if logIt, held := fail.allow(time.Now()); logIt {
+				p.log.Warn("mqtt connect failed", "broker", shown, "err", err, "failures_since_last_report", held)
+			}
+			return nil, fmt.Errorf("connect %s: %w", shown, err)
 		}
-		return nil, fmt.Errorf("connect %s: %w", broker, err)
 	}
 	l.c = c
+	if ob := p.o.Outbox; ob != nil {
+		l.boundary = ob.lastAssigned()
+		l.liveNext, l.backNext = l.boundary+1, 1
+	}
 	p.writers.Add(1)
 	go p.write(l)
 	p.mu.Lock()
 	p.connected = true
-	p.broker = broker
+	p.broker = shown
 	p.connects++
 	close(p.connCh)
 	queued := p.q.len()
 	p.mu.Unlock()
 	failures := fail.reset()
-	p.log.Info("mqtt connected", "broker", broker, "queued", queued, "failed_attempts", failures)
+	args := []any{"broker", shown, "queued", queued, "failed_attempts", failures}
+	if ob := p.o.Outbox; ob != nil {
+		args = append(args, "outbox_entries", ob.Stats().Depth, "backlog_through_seq", l.boundary)
+	}
+	p.log.Info("mqtt connected", args...)
 	return l, nil
 }
 
+// logConnectError logs a failed connection attempt. Refused credentials
+// and a broker certificate that fails verification are configuration
+// faults and logged as errors, each with what to check; other failures
+// are warnings. Repeats are rate-limited by fail.
+func (p *Publisher) logConnectError(broker string, err error, fail *limiter) {
+	logIt, held := fail.allow(time.Now())
+	if !logIt {
+		return
+	}
+	var (
+		cve *tls.CertificateVerificationError
+		uae x509.UnknownAuthorityError
+		hne x509.HostnameError
+		cie x509.CertificateInvalidError
+		rhe tls.RecordHeaderError
+	)
+	switch {
+	case errors.As(err, &cve), errors.As(err, &uae), errors.As(err, &hne), errors.As(err, &cie):
+		p.log.Error("mqtt broker certificate failed verification; not connecting (no fallback to plaintext)",
+			"broker", broker, "err", err, "check", "CA file, server name and the broker's certificate",
+			"failures_since_last_report", held)
+	case errors.As(err, &rhe):
+		p.log.Error("mqtt broker did not answer in TLS; not connecting (no fallback to plaintext)",
+			"broker", broker, "err", err, "check", "the broker port is its TLS listener", "failures_since_last_report", held)
+	case errors.Is(err, packets.ErrorRefusedBadUsernameOrPassword), errors.Is(err, packets.ErrorRefusedNotAuthorised):
+		p.log.Error("mqtt broker refused the credentials", "broker", broker, "username", p.o.Username,
+			"err", err, "failures_since_last_report", held)
+	default:
+		p.log.Warn("mqtt connect failed", "broker", broker, "err", err, "failures_since_last_report", held)
+	}
+}
+
+// redact returns broker with any password in its user information
+// replaced by "xxxxx".
+func redact(broker string) string {
+	u, err := url.Parse(broker)
+	if err != nil {
+		return broker // fill has parsed it already
+	}
+	return u.Redacted()
+}
+
 // serve sends Online and the OnConnect messages once per connection, then
-// keeps up to Window queued messages in flight, completing their tokens in
-// order. It returns the error that broke the connection, or ctx.Err(), or
-// nil when flush is set and the queue is empty.
+// keeps up to Window messages in flight from the queue and the outbox,
+// completing their tokens in order. It returns the error that broke the
+// connection, or ctx.Err(), or nil when flush is set and the queue is
+// empty. While flushing it sends no more outbox entries: they are durable
+// and wait for the next connection.
 func (p *Publisher) serve(ctx context.Context, l *link, flush bool) error {
 	if !l.greeted {
 		l.greeted = true
@@ -552,26 +732,13 @@ func (p *Publisher) serve(ctx context.Context, l *link, flush bool) error {
 		}
 	}
 	for {
-		for l.n < p.o.Window {
-			var o outgoing
-			if len(l.pre) > 0 {
-				o = outgoing{m: l.pre[0]}
-				l.pre = l.pre[1:]
-			} else {
-				p.mu.Lock()
-				m, ok := p.q.nextUnsent()
-				p.mu.Unlock()
-				if !ok {
-					break
-				}
-				o = outgoing{m: m, queued: true}
-			}
-			l.out <- o // never blocks: out holds Window entries
-			l.n++
-		}
-		var wake <-chan struct{}
+		p.fill(l, flush)
+		var wake, committed <-chan struct{}
 		if l.n < p.o.Window {
 			wake = p.wake
+			if p.o.Outbox != nil && !flush {
+				committed = p.o.Outbox.committedSignal()
+			}
 		}
 		var headDone, newHead = (<-chan struct{})(nil), l.toks
 		if l.hasHead {
@@ -588,19 +755,133 @@ func (p *Publisher) serve(ctx context.Context, l *link, flush bool) error {
 			l.head, l.hasHead = h, true
 		case <-headDone:
 			if err := l.head.tok.Error(); err != nil {
-				return fmt.Errorf("publish %s: %w", l.head.topic, err)
+				return fmt.Errorf("publish %s: %w", l.head.m.Topic, err)
 			}
-			queued := l.head.queued
+			h := l.head
 			l.head, l.hasHead = pending{}, false
 			l.n--
-			if queued {
-				p.acked()
+			switch h.src {
+			case fromLive:
+				l.liveN--
+			case fromBacklog:
+				l.backN--
 			}
+			p.completed(h)
 		case <-wake:
+		case <-committed:
 		case <-ctx.Done():
 			return ctx.Err()
 		case err := <-l.lost:
 			return fmt.Errorf("connection lost: %w", err)
+		}
+	}
+}
+
+// fill hands out messages until the window is full or nothing is ready:
+// Online and OnConnect first, then the queue, then live outbox entries up
+// to three quarters of the window while a backlog remains, then the
+// backlog.
+func (p *Publisher) fill(l *link, flush bool) {
+	w := p.o.Window
+	for l.n < w {
+		var o outgoing
+		if len(l.pre) > 0 {
+			o = outgoing{m: l.pre[0], src: fromConnect}
+			l.pre = l.pre[1:]
+		} else {
+			p.mu.Lock()
+			m, ok := p.q.nextUnsent()
+			p.mu.Unlock()
+			if !ok {
+				break
+			}
+			o = outgoing{m: m, src: fromQueue}
+		}
+		l.out <- o // never blocks: out holds Window entries
+		l.n++
+	}
+	ob := p.o.Outbox
+	if ob == nil || flush || l.n >= w {
+		return
+	}
+	vis := ob.visible()
+	reserve := max(1, w/4) // the backlog's share of the window
+	liveCap := w
+	if !l.backDone {
+		liveCap = w - reserve
+	}
+	if n := min(w-l.n, liveCap-l.liveN); n > 0 && l.liveNext <= vis {
+		es, next, err := ob.read(l.liveNext, maxSeq, n)
+		if err != nil {
+			p.readFailed(err)
+			return
+		}
+		l.liveNext = next
+		for i := range es {
+			p.handOut(l, &es[i], fromLive)
+		}
+	}
+	if l.backDone {
+		return
+	}
+	// Read the backlog in batches, not one entry per PUBACK.
+	free := w - l.n
+	if free == 0 || (free < min(16, reserve) && l.n > 0) || l.backNext > vis {
+		return
+	}
+	es, next, err := ob.read(l.backNext, l.boundary, free)
+	if err != nil {
+		p.readFailed(err)
+		return
+	}
+	l.backNext = next
+	for i := range es {
+		if es[i].kind == KindReading {
+			es[i].payload = markReplayed(es[i].payload)
+		}
+		p.handOut(l, &es[i], fromBacklog)
+	}
+	l.replayed += len(es)
+	if l.backNext > l.boundary {
+		l.backDone = true
+		p.log.Info("mqtt outbox backlog handed out", "broker", l.broker, "entries", l.replayed, "through_seq", l.boundary)
+	}
+}
+
+func (p *Publisher) handOut(l *link, e *entry, src source) {
+	l.out <- outgoing{m: Message{Topic: e.topic, Payload: e.payload, Retain: e.retain}, src: src, seq: e.seq}
+	l.n++
+	if src == fromLive {
+		l.liveN++
+	} else {
+		l.backN++
+	}
+}
+
+func (p *Publisher) readFailed(err error) {
+	p.mu.Lock()
+	logIt, held := p.readLog.allow(time.Now())
+	p.mu.Unlock()
+	if logIt {
+		p.log.Error("mqtt outbox read failed", "err", err, "failures_since_last_report", held)
+	}
+}
+
+// completed accounts for a message whose PUBACK has come.
+func (p *Publisher) completed(h pending) {
+	switch h.src {
+	case fromQueue:
+		p.acked()
+	case fromLive, fromBacklog:
+		p.o.Outbox.ack(h.seq)
+		p.mu.Lock()
+		p.outboxAcked++
+		if h.src == fromBacklog {
+			p.replayed++
+		}
+		p.mu.Unlock()
+		if p.o.OnAck != nil {
+			p.o.OnAck(h.m)
 		}
 	}
 }
@@ -617,8 +898,9 @@ func (p *Publisher) acked() {
 }
 
 // lose gives up a broken connection and puts every message still in
-// flight back at the front of the queue. PUBACKs that came before the
-// break still count, in order, so fewer messages go out twice.
+// flight back at the front of the queue, or back in the outbox. PUBACKs
+// that came before the break still count, in order, so fewer messages go
+// out twice.
 func (p *Publisher) lose(l *link, err error) {
 	close(l.dead)
 	for {
@@ -634,9 +916,13 @@ func (p *Publisher) lose(l *link, err error) {
 		if !isDone(l.head.tok) || l.head.tok.Error() != nil {
 			break
 		}
-		if l.head.queued {
-			p.acked()
+		switch l.head.src {
+		case fromLive:
+			l.liveN--
+		case fromBacklog:
+			l.backN--
 		}
+		p.completed(l.head)
 		l.hasHead = false
 	}
 	l.c.Disconnect(0)
@@ -644,8 +930,11 @@ func (p *Publisher) lose(l *link, err error) {
 	resend := p.q.sent
 	p.q.unsendAll()
 	p.mu.Unlock()
+	if p.o.Outbox != nil {
+		p.o.Outbox.release()
+	}
 	p.setDisconnected()
-	p.log.Warn("mqtt connection lost", "broker", l.broker, "err", err, "to_resend", resend)
+	p.log.Warn("mqtt connection lost", "broker", l.broker, "err", err, "to_resend", resend+l.liveN+l.backN)
 }
 
 func (p *Publisher) setDisconnected() {

@@ -2,6 +2,7 @@ package mqtt_test
 
 import (
 	"context"
+	"crypto/tls"
 	"fmt"
 	"log/slog"
 	"net"
@@ -526,6 +527,12 @@ func TestNewPublisherOptions(t *testing.T) {
 		{"window above queue", func(o *mqtt.Options) { o.QueueSize, o.Window = 10, 11 }, "window 11 larger than queue size 10"},
 		{"small queue, default window", func(o *mqtt.Options) { o.QueueSize = 10 }, ""},
 		{"state wildcard", func(o *mqtt.Options) { o.StateTopic = "a/#" }, "state topic"},
+		{"command topic without handler", func(o *mqtt.Options) { o.CommandTopic = "a/cmd" }, "without OnCommand"},
+		{"command wildcard", func(o *mqtt.Options) { o.CommandTopic, o.OnCommand = "a/+", func([]byte) {} }, "command topic"},
+		{"command topic", func(o *mqtt.Options) { o.CommandTopic, o.OnCommand = "a/cmd", func([]byte) {} }, ""},
+		{"TLS over tcp", func(o *mqtt.Options) { o.TLS = &tls.Config{} }, "TLS is configured but scheme \"tcp\" is plaintext"},
+		{"TLS over ssl", func(o *mqtt.Options) { o.TLS, o.Brokers = &tls.Config{}, []string{"ssl://h:8883"} }, ""},
+		{"password in a bad URL", func(o *mqtt.Options) { o.Brokers = []string{"tcp://u:secret@h:x"} }, "broker 1: not a URL"},
 	} {
 		o := ok
 		o.Brokers = append([]string(nil), ok.Brokers...)
@@ -536,6 +543,8 @@ func TestNewPublisherOptions(t *testing.T) {
 			t.Errorf("%s: %v", c.name, err)
 		case c.wantErr != "" && (err == nil || !strings.Contains(err.Error(), c.wantErr)):
 			t.Errorf("%s: error %v, want one with %q", c.name, err, c.wantErr)
+		case err != nil && strings.Contains(err.Error(), "secret"):
+			t.Errorf("%s: error %v shows the password", c.name, err)
 		}
 	}
 }

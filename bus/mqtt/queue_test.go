@@ -83,6 +83,17 @@ func TestBackoff(t *testing.T) {
 	if d := b.next(); d > 100*time.Millisecond {
 		t.Errorf("after reset: %v, want at most 100ms", d)
 	}
+	// Jitter: waits at the cap spread over [max/2, max], so that gateways
+	// cut off together do not come back in step. 200 uniform draws all
+	// within half that range have a probability of 2^-199.
+	lo, hi := time.Hour, time.Duration(0)
+	for range 200 {
+		d := b.next()
+		lo, hi = min(lo, d), max(hi, d)
+	}
+	if hi-lo < 250*time.Millisecond {
+		t.Errorf("waits at the cap from %v to %v: no jitter", lo, hi)
+	}
 }
 
 func TestLimiter(t *testing.T) {

@@ -12,6 +12,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"strconv"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -29,9 +30,10 @@ const startTimeout = 10 * time.Second
 // as a child process, or the embedded broker. Stop and Start kill and
 // restart it on the same port; the test's cleanup stops it for good.
 type Broker struct {
-	t    testing.TB
-	addr string
-	kind string
+	t      testing.TB
+	addr   string
+	kind   string
+	scheme string // of URL: "tcp" or "ssl"
 
 	mu       sync.Mutex
 	conf     string        // Mosquitto configuration file
@@ -61,7 +63,78 @@ func Start(t testing.TB) *Broker {
 // accepts connections.
 func StartMosquitto(t testing.TB) *Broker {
 	t.Helper()
-	b := &Broker{t: t, kind: "mosquitto", output: new(syncBuffer)}
+	return StartMosquittoWith(t, MosquittoOptions{})
+}
+
+// MosquittoOptions configure StartMosquittoWith. The zero value is the
+// broker of StartMosquitto.
+type MosquittoOptions struct {
+	// CertFile and KeyFile, when set, make the listener TLS only, with
+	// this certificate and key (PEM files); URL then starts with ssl://.
+	// CAFile (PEM) verifies client certificates; with RequireClientCert
+	// the broker refuses clients without a certificate it signed.
+	CAFile, CertFile, KeyFile string
+	RequireClientCert         bool
+	// Users, when not empty, turns anonymous access off and admits these
+	// user names with these passwords, written to a password file with
+	// mosquitto_passwd (MosquittoPasswdPath).
+	Users map[string]string
+}
+
+// MosquittoPasswdPath is where Debian's mosquitto package installs the
+// password file tool.
+const MosquittoPasswdPath = "/usr/bin/mosquitto_passwd"
+
+// StartMosquittoTLS runs Mosquitto with a TLS-only listener serving
+// certFile and keyFile, signed by the authority in caFile (PEM files, as
+// NewCA and CA.Issue write them). Clients connect to URL(), ssl://.
+func StartMosquittoTLS(t testing.TB, caFile, certFile, keyFile string) *Broker {
+	t.Helper()
+	return StartMosquittoWith(t, MosquittoOptions{CAFile: caFile, CertFile: certFile, KeyFile: keyFile})
+}
+
+// StartMosquittoWith runs Mosquitto configured by o on a free loopback
+// port and waits until it accepts connections.
+func StartMosquittoWith(t testing.TB, o MosquittoOptions) *Broker {
+	t.Helper()
+	b := &Broker{t: t, kind: "mosquitto", scheme: "tcp", output: new(syncBuffer)}
+	dir := t.TempDir()
+	var extra strings.Builder
+	if os.Geteuid() == 0 {
+		// Started as root, Mosquitto drops to the mosquitto user before it
+		// reads certificates and password files, which it then cannot
+		// read in the test's private temporary directory; "user root"
+		// keeps it from dropping (Mosquitto warns about it).
+		extra.WriteString("user root\n")
+	}
+	if o.CertFile != "" || o.KeyFile != "" {
+		if o.CertFile == "" || o.KeyFile == "" {
+			t.Fatalf("mosquitto: TLS needs both a certificate and a key file")
+		}
+		b.scheme = "ssl"
+		fmt.Fprintf(&extra, "certfile %s\nkeyfile %s\n", o.CertFile, o.KeyFile)
+		if o.CAFile != "" {
+			fmt.Fprintf(&extra, "cafile %s\n", o.CAFile)
+		}
+		if o.RequireClientCert {
+			extra.WriteString("require_certificate true\n")
+		}
+	}
+	anonymous := "true"
+	if len(o.Users) > 0 {
+		anonymous = "false"
+		pw := filepath.Join(dir, "passwd")
+		for user, pass := range o.Users {
+			args := []string{"-b", pw, user, pass}
+			if _, err := os.Stat(pw); err != nil {
+				args = append([]string{"-c"}, args...)
+			}
+			if out, err := exec.Command(MosquittoPasswdPath, args...).CombinedOutput(); err != nil {
+				t.Fatalf("mosquitto_passwd for %q: %v\n%s", user, err, out)
+			}
+		}
+		fmt.Fprintf(&extra, "password_file %s\n", pw)
+	}
 	t.Cleanup(func() {
 		b.Stop()
 		if t.Failed() {
@@ -78,8 +151,8 @@ func StartMosquitto(t testing.TB) *Broker {
 			t.Fatalf("mosquitto: %v", err)
 		}
 		b.addr = net.JoinHostPort("127.0.0.1", strconv.Itoa(port))
-		b.conf = filepath.Join(t.TempDir(), "mosquitto.conf")
-		conf := fmt.Sprintf("listener %d 127.0.0.1\nallow_anonymous true\npersistence false\n"+
+		b.conf = filepath.Join(dir, "mosquitto.conf")
+		conf := fmt.Sprintf("listener %d 127.0.0.1\nallow_anonymous %s\npersistence false\n"+
 			// Subscribers in tests may fall behind a fast publisher: keep
 			// their QoS 1 backlog instead of dropping it past 1000 messages.
 			"max_queued_messages 0\n"+
@@ -87,7 +160,7 @@ func StartMosquitto(t testing.TB) *Broker {
 			// default, which holds small messages to a subscriber for up
 			// to a delayed-ACK period (tens of milliseconds); latency
 			// figures are taken with it off, as a plant broker should be.
-			"set_tcp_nodelay true\n", port)
+			"set_tcp_nodelay true\n", port, anonymous) + extra.String()
 		if err = os.WriteFile(b.conf, []byte(conf), 0o600); err != nil {
 			t.Fatalf("mosquitto: %v", err)
 		}
@@ -102,7 +175,7 @@ func StartMosquitto(t testing.TB) *Broker {
 // StartEmbedded runs the embedded broker on a free loopback port.
 func StartEmbedded(t testing.TB) *Broker {
 	t.Helper()
-	b := &Broker{t: t, kind: "embedded", output: new(syncBuffer)}
+	b := &Broker{t: t, kind: "embedded", scheme: "tcp", output: new(syncBuffer)}
 	eb, err := mqtt.StartEmbeddedBroker("127.0.0.1:0", b.logger())
 	if err != nil {
 		t.Fatalf("embedded broker: %v", err)
@@ -123,8 +196,9 @@ func (b *Broker) Kind() string { return b.kind }
 // Addr is the broker's host:port.
 func (b *Broker) Addr() string { return b.addr }
 
-// URL is the broker's address for clients, "tcp://127.0.0.1:PORT".
-func (b *Broker) URL() string { return "tcp://" + b.addr }
+// URL is the broker's address for clients, "tcp://127.0.0.1:PORT", or
+// "ssl://127.0.0.1:PORT" for a TLS listener.
+func (b *Broker) URL() string { return b.scheme + "://" + b.addr }
 
 // Stop kills the broker (SIGKILL for Mosquitto: a crash, not a clean
 // shutdown) and waits until it is gone. Stopping a stopped broker does

@@ -2,8 +2,12 @@ package mqtttest_test
 
 import (
 	"bytes"
+	"crypto/tls"
+	"crypto/x509"
 	"io"
 	"net"
+	"os"
+	"strings"
 	"testing"
 	"time"
 
@@ -156,5 +160,34 @@ func TestRawQoS1Ceiling(t *testing.T) {
 	b := mqtttest.Start(t)
 	if rate := mqtttest.RawQoS1Ceiling(t, b.URL(), 500, 100); rate <= 0 {
 		t.Fatalf("rate %v", rate)
+	}
+}
+
+// A TLS broker with certificates from NewCA carries messages for clients
+// that trust the authority.
+func TestStartMosquittoTLS(t *testing.T) {
+	if _, err := os.Stat(mqtttest.MosquittoPath); err != nil && os.Getenv("GLOWGATE_REQUIRE_REAL") != "1" {
+		t.Skipf("%s: %v", mqtttest.MosquittoPath, err)
+	}
+	ca := mqtttest.NewCA(t, "test CA")
+	cert, key := ca.Issue(t, "broker", "127.0.0.1")
+	b := mqtttest.StartMosquittoTLS(t, ca.CertFile, cert, key)
+	if !strings.HasPrefix(b.URL(), "ssl://") {
+		t.Fatalf("URL %s", b.URL())
+	}
+	pool := x509.NewCertPool()
+	pool.AddCert(ca.Cert)
+	cfg := &tls.Config{RootCAs: pool}
+	sub := mqtttest.SubscribeWith(t, b.URL(), "t/#", mqtttest.SubscribeOptions{TLS: cfg})
+	c := paho.NewClient(paho.NewClientOptions().AddBroker(b.URL()).SetClientID("mqtttest-tls-pub").SetTLSConfig(cfg))
+	if tok := c.Connect(); !tok.WaitTimeout(wait) || tok.Error() != nil {
+		t.Fatalf("connect: %v", tok.Error())
+	}
+	defer c.Disconnect(100)
+	if tok := c.Publish("t/1", 1, false, "over tls"); !tok.WaitTimeout(wait) || tok.Error() != nil {
+		t.Fatalf("publish: %v", tok.Error())
+	}
+	if m := sub.WaitFor("t/1", nil, wait); string(m.Payload) != "over tls" {
+		t.Fatalf("got %q", m.Payload)
 	}
 }

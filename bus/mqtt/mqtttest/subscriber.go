@@ -1,6 +1,7 @@
 package mqtttest
 
 import (
+	"crypto/tls"
 	"fmt"
 	"sync"
 	"sync/atomic"
@@ -43,6 +44,18 @@ var clientSeq atomic.Uint64
 // waits for the SUBACK and returns. The client disconnects in t's cleanup.
 func Subscribe(t testing.TB, url, filter string) *Subscriber {
 	t.Helper()
+	return SubscribeWith(t, url, filter, SubscribeOptions{})
+}
+
+// SubscribeOptions are the credentials of a Subscriber.
+type SubscribeOptions struct {
+	TLS                *tls.Config // for ssl:// brokers
+	Username, Password string
+}
+
+// SubscribeWith is Subscribe with credentials.
+func SubscribeWith(t testing.TB, url, filter string, so SubscribeOptions) *Subscriber {
+	t.Helper()
 	s := &Subscriber{
 		t:      t,
 		filter: filter,
@@ -65,6 +78,12 @@ func Subscribe(t testing.TB, url, filter string) *Subscriber {
 		SetOrderMatters(true).
 		SetDefaultPublishHandler(s.receive).
 		SetOnConnectHandler(s.onConnect)
+	if so.TLS != nil {
+		o.SetTLSConfig(so.TLS)
+	}
+	if so.Username != "" {
+		o.SetUsername(so.Username).SetPassword(so.Password)
+	}
 	s.c = paho.NewClient(o)
 	t.Cleanup(func() {
 		close(s.done)
