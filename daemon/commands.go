@@ -58,7 +58,10 @@ type commandReply struct {
 
 // actions are the commands glowgate knows, with the fields each needs.
 var actions = map[string][]string{
-	"republish": nil,
+	"republish":   nil,
+	"acknowledge": {"head", "alarm"},
+	"shelve":      {"head", "alarm", "until"},
+	"unshelve":    {"head", "alarm"},
 }
 
 // commandGate checks commands: their shape, their signature and that
@@ -194,7 +197,16 @@ func (d *Daemon) execute(c command) error {
 		for _, m := range d.infoMessages() {
 			pub.Publish(m)
 		}
+		d.publishAllAlarmStates()
 		return nil
+	case "acknowledge", "unshelve":
+		return d.alarmAction(c.Action, c.Head, c.Alarm, c.By, time.Time{})
+	case "shelve":
+		until, err := time.Parse(time.RFC3339Nano, c.Until)
+		if err != nil {
+			return fmt.Errorf(`"until" %q is not RFC 3339`, c.Until)
+		}
+		return d.alarmAction(c.Action, c.Head, c.Alarm, c.By, until)
 	}
 	return fmt.Errorf("action %q is not carried out by this gateway", c.Action)
 }

@@ -14,6 +14,7 @@ package daemon
 
 import (
 	"context"
+	"crypto/tls"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -26,6 +27,7 @@ import (
 
 	"golang.org/x/sync/errgroup"
 
+	"glowgate/alarms"
 	"glowgate/bus/modbus"
 	"glowgate/bus/mqtt"
 	"glowgate/convert"
@@ -41,8 +43,11 @@ type Options struct {
 	Reload <-chan os.Signal
 	// Brokers, when not empty, replace the configured broker list.
 	Brokers []string
-	Logger  *slog.Logger
-	Version string
+	// StateDir, when not empty, replaces the configured state directory
+	// (the durable outbox lives there).
+	StateDir string
+	Logger   *slog.Logger
+	Version  string
 	// Now is the clock for acquisition times; nil means time.Now.
 	Now func() time.Time
 }
@@ -60,7 +65,11 @@ type Daemon struct {
 	heads  []*head
 	latest map[string]mqtt.Reading
 	pub    *mqtt.Publisher
-	gate   *commandGate // nil: commands are off
+	outbox *mqtt.Outbox // nil: no state directory, readings wait in memory
+	// savedAlarms holds every head's latest alarm states, as written to
+	// the state directory.
+	savedAlarms map[string][]alarms.Saved
+	gate        *commandGate // nil: commands are off
 }
 
 // New checks that every head of the configuration can be built.
@@ -79,6 +88,13 @@ func New(o Options) (*Daemon, error) {
 		return nil, err
 	}
 	d := &Daemon{opts: o, log: o.Logger, now: o.Now, cfg: o.Config, heads: heads, latest: map[string]mqtt.Reading{}}
+	d.savedAlarms = d.loadAlarms()
+	if d.savedAlarms == nil {
+		d.savedAlarms = map[string][]alarms.Saved{}
+	}
+	if err := d.attachAlarms(heads); err != nil {
+		return nil, err
+	}
 	if c := o.Config.Commands; c.Enabled {
 		d.gate = newCommandGate(c.Secret, c.ReplayWindow)
 	}
@@ -87,6 +103,21 @@ func New(o Options) (*Daemon, error) {
 	// fewer than a million readings a second are made.
 	d.seq.Store(uint64(o.Now().UnixMicro()))
 	return d, nil
+}
+
+// attachAlarms gives each head its alarms, in the states last saved.
+func (d *Daemon) attachAlarms(heads []*head) error {
+	for _, h := range heads {
+		d.mu.Lock()
+		saved := d.savedAlarms[h.cfg.Name]
+		d.mu.Unlock()
+		ha, err := newHeadAlarms(h.cfg, saved)
+		if err != nil {
+			return fmt.Errorf("head %s: %w", h.cfg.Name, err)
+		}
+		h.alarms = ha
+	}
+	return nil
 }
 
 func buildHeads(cfg *config.Config) ([]*head, error) {
@@ -105,6 +136,10 @@ func buildHeads(cfg *config.Config) ([]*head, error) {
 // flushes the publisher (bounded), publishes the offline state and
 // returns. A reload that fails keeps the running configuration.
 func (d *Daemon) Run(ctx context.Context) error {
+	if err := d.openOutbox(); err != nil {
+		return err
+	}
+	defer d.closeOutbox()
 	// The publisher outlives the pollers: it flushes after they stop.
 	pubCtx := context.WithoutCancel(ctx)
 	stopPub, err := d.startPublisher(pubCtx)
@@ -112,6 +147,17 @@ func (d *Daemon) Run(ctx context.Context) error {
 		return err
 	}
 	defer func() { stopPub() }()
+	d.publishAllAlarmStates()
+	tickDone := make(chan struct{})
+	tickCtx, stopTicking := context.WithCancel(ctx)
+	go func() {
+		defer close(tickDone)
+		d.runAlarmTicker(tickCtx)
+	}()
+	defer func() {
+		stopTicking()
+		<-tickDone
+	}()
 	for {
 		pollCtx, stopPolling := context.WithCancel(ctx)
 		polled := make(chan error, 1)
@@ -139,6 +185,47 @@ func (d *Daemon) Run(ctx context.Context) error {
 	}
 }
 
+// openOutbox opens the durable outbox in the state directory, when there
+// is one. Readings appended to it survive a crash and a restart, and
+// their sequence numbers never go back.
+func (d *Daemon) openOutbox() error {
+	cfg := d.config()
+	dir := cfg.StateDir
+	if d.opts.StateDir != "" {
+		dir = d.opts.StateDir
+	}
+	if dir == "" {
+		d.log.Warn("no state directory: readings wait in memory while the broker is away and are lost on a restart")
+		return nil
+	}
+	ob, err := mqtt.OpenOutbox(dir, mqtt.OutboxOptions{
+		MaxEntries:     cfg.MQTT.Outbox.MaxEntries,
+		CommitInterval: cfg.MQTT.Outbox.CommitInterval,
+		GapTopic:       mqttTopics(cfg).Events(),
+		Gateway:        cfg.Gateway,
+		Logger:         d.log.With("part", "outbox"),
+		Now:            d.now,
+	})
+	if err != nil {
+		return fmt.Errorf("state directory %s: %w", dir, err)
+	}
+	d.mu.Lock()
+	d.outbox = ob
+	d.mu.Unlock()
+	return nil
+}
+
+func (d *Daemon) closeOutbox() {
+	d.mu.Lock()
+	ob := d.outbox
+	d.mu.Unlock()
+	if ob != nil {
+		if err := ob.Close(); err != nil {
+			d.log.Error("closing the outbox", "err", err)
+		}
+	}
+}
+
 // reload reads the configuration again and swaps it in whole when it is
 // valid; it reports whether the publisher must be rebuilt.
 func (d *Daemon) reload() (newPublisher bool) {
@@ -149,6 +236,9 @@ func (d *Daemon) reload() (newPublisher bool) {
 	if err == nil {
 		var heads []*head
 		if heads, err = buildHeads(cfg); err == nil {
+			err = d.attachAlarms(heads)
+		}
+		if err == nil {
 			d.mu.Lock()
 			old := d.cfg
 			gone := removedHeads(old, cfg)
@@ -213,10 +303,30 @@ func (d *Daemon) startPublisher(parent context.Context) (stop func(), err error)
 	if clientID == "" {
 		clientID = "glowgate-" + cfg.Gateway
 	}
+	var tlsConfig *tls.Config
+	if t := cfg.MQTT.TLS; t != nil {
+		var err error
+		if tlsConfig, err = mqtt.TLSConfig(t.CAFile, t.CertFile, t.KeyFile, t.ServerName); err != nil {
+			return nil, fmt.Errorf("mqtt tls: %w", err)
+		}
+	}
+	var commandTopic string
+	var onCommand func([]byte)
+	if d.gate != nil {
+		commandTopic, onCommand = mqttTopics(cfg).Cmd(), d.onCommand
+	}
+	d.mu.Lock()
+	outbox := d.outbox
+	d.mu.Unlock()
 	pub, err := mqtt.NewPublisher(mqtt.Options{
 		Brokers:        brokers,
 		ClientID:       clientID,
 		Username:       cfg.MQTT.Username,
+		Password:       cfg.MQTT.Password,
+		TLS:            tlsConfig,
+		Outbox:         outbox,
+		CommandTopic:   commandTopic,
+		OnCommand:      onCommand,
 		KeepAlive:      cfg.MQTT.KeepAlive,
 		ConnectTimeout: cfg.MQTT.ConnectTimeout,
 		QueueSize:      cfg.MQTT.Queue,
@@ -327,6 +437,7 @@ func (d *Daemon) poll(ctx context.Context) error {
 				r = h.polled(res.Time, res.Blocks, scratch)
 			}
 			d.publish(topicOf[res.Poll], pub, r)
+			d.evaluate(h, &r)
 		}
 		line := modbus.NewLine(modbus.LineConfig{
 			Name:       b.name,
@@ -351,13 +462,38 @@ func (d *Daemon) poll(ctx context.Context) error {
 // Numbering and queueing happen under one lock, so that the queue holds
 // the readings of all lines in sequence order.
 func (d *Daemon) publish(topic string, pub *mqtt.Publisher, r mqtt.Reading) {
-	d.seqMu.Lock()
-	r.Seq = d.seq.Add(1)
-	pub.Publish(mqtt.Message{Topic: topic, Payload: r.AppendJSON(make([]byte, 0, 640))})
-	d.seqMu.Unlock()
+	if ob := d.outbox; ob != nil {
+		_, err := ob.Append(mqtt.KindReading, topic, false, func(seq uint64) []byte {
+			r.Seq = seq
+			return r.AppendJSON(make([]byte, 0, 640))
+		})
+		if err != nil {
+			d.log.Error("outbox append", "head", r.Head, "err", err)
+		}
+	} else {
+		d.seqMu.Lock()
+		r.Seq = d.seq.Add(1)
+		pub.Publish(mqtt.Message{Topic: topic, Payload: r.AppendJSON(make([]byte, 0, 640))})
+		d.seqMu.Unlock()
+	}
 	d.mu.Lock()
 	d.latest[r.Head] = r
 	d.mu.Unlock()
+}
+
+// runAlarmTicker drives the alarms' time-driven transitions once a
+// second until ctx is done.
+func (d *Daemon) runAlarmTicker(ctx context.Context) {
+	t := time.NewTicker(time.Second)
+	defer t.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+			d.tickAlarms(d.now())
+		}
+	}
 }
 
 // config returns the running configuration.

@@ -26,6 +26,7 @@ type head struct {
 	k        float64        // emissivity ratio of the published pair
 	c2       float64        // second radiation constant of the channel models, m·K
 	m        convert.Measurement
+	alarms   *headAlarms // nil: the head has no alarms
 }
 
 // newHead turns a validated configuration head into its runtime form.

@@ -10,11 +10,12 @@ import (
 )
 
 func runCmd(ctx context.Context, e *env, args []string) error {
-	fs := newFlags("run", "-config FILE [-broker URL]",
+	fs := newFlags("run", "-config FILE [-broker URL] [-state-dir DIR]",
 		"Polls every configured head and publishes its readings until SIGINT or SIGTERM.\n"+
 			"SIGHUP reloads the configuration; an invalid one is logged and the running one stays.", e.stderr)
 	path := fs.String("config", "", "configuration file (YAML)")
 	broker := fs.String("broker", "", "broker URL(s), comma-separated, replacing mqtt.brokers (e.g. tcp://127.0.0.1:1883)")
+	stateDir := fs.String("state-dir", "", "state directory (durable outbox), replacing state_dir")
 	var lf logFlags
 	lf.register(fs, "info")
 	if err := parseNoArgs(fs, args); err != nil {
@@ -36,12 +37,13 @@ func runCmd(ctx context.Context, e *env, args []string) error {
 		}
 	}
 	d, err := daemon.New(daemon.Options{
-		Config:  cfg,
-		Load:    func() (*config.Config, error) { return config.Load(*path) },
-		Reload:  e.hup,
-		Brokers: brokers,
-		Logger:  log,
-		Version: versionString(),
+		Config:   cfg,
+		Load:     func() (*config.Config, error) { return config.Load(*path) },
+		Reload:   e.hup,
+		Brokers:  brokers,
+		StateDir: *stateDir,
+		Logger:   log,
+		Version:  versionString(),
 	})
 	if err != nil {
 		return err

@@ -77,6 +77,7 @@ type Head struct {
 	Uncertainty  Uncertainty
 	Status       *Status // optional status word
 	Extras       []Extra // optional extra values
+	Alarms       []AlarmRule
 	Sim          Sim
 }
 

@@ -227,7 +227,7 @@ func (d *decoder) head(v val) Head {
 		d.errorf(v, "empty entry (want a head mapping)")
 		return h
 	}
-	f := d.fields(v, "name", "endpoint", "line", "unit_id", "registers", "period", "range", "status", "extras",
+	f := d.fields(v, "name", "endpoint", "line", "unit_id", "registers", "period", "range", "status", "extras", "alarms",
 		"emissivity_ratio", "emissivity", "low_signal", "description", "channels",
 		"publish", "nongrey_limit", "fit_terms", "processing", "loss", "uncertainty", "sim")
 	if v := f.required("name"); v.n != nil {
@@ -326,6 +326,7 @@ func (d *decoder) head(v val) Head {
 	for _, it := range d.list(f.get("extras")) {
 		h.Extras = append(h.Extras, d.extra(it))
 	}
+	h.Alarms = d.alarmRules(f.get("alarms"))
 	d.sim(f.get("sim"), &h)
 	return h
 }

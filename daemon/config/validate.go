@@ -79,6 +79,7 @@ func (d *decoder) validate(c *Config) {
 			d.registerMap(h, hp)
 		}
 		d.checkStatusEpisodes(h, hp)
+		d.checkAlarms(c, h, hp)
 	}
 }
 

@@ -1,0 +1,99 @@
+package daemon
+
+import (
+	"encoding/json"
+	"fmt"
+	"testing"
+	"time"
+
+	"glowgate/bus/modbus/modbustest"
+	"glowgate/bus/mqtt"
+	"glowgate/bus/mqtt/mqtttest"
+
+	paho "github.com/eclipse/paho.mqtt.golang"
+)
+
+// TestAlarmEndToEnd: an over-temperature raises the head's high alarm
+// within a poll period plus its on-delay; an acknowledge command moves it
+// to acknowledged; the return to normal clears it; a shelve expires on
+// time. Every transition arrives on the events topic and the alarm's
+// retained state follows.
+func TestAlarmEndToEnd(t *testing.T) {
+	broker := mqtttest.Start(t)
+	srv := modbustest.NewServer(t)
+	setBlackbody(t, srv, 1, 1400)
+	cfg := parseConfig(t, fmt.Sprintf(`
+gateway: alarm-gw
+unit: K
+mqtt: {brokers: [%s]}
+state_dir: %s
+endpoints: [{name: ep, address: %s, timeout: 200ms}]
+heads:
+  - name: strand
+    endpoint: ep
+    period: 50ms
+    range: {min: 700K, max: 2500K}
+    channels:
+      - {name: short, band: {from: 0.875um, to: 0.925um}, signal: {address: 0, type: float32}}
+      - {name: long, band: {from: 1.025um, to: 1.075um}, signal: {address: 2, type: float32}}
+    alarms:
+      - {name: high, kind: high, setpoint: 1450K, deadband: 5K, on_delay: 200ms, priority: high, message: "strand too hot"}
+`, broker.URL(), t.TempDir(), srv.Addr()))
+	topics := mqtt.Topics{Root: cfg.MQTT.Root, Gateway: cfg.Gateway}
+	events := mqtttest.Subscribe(t, broker.URL(), topics.Events())
+	replies := mqtttest.Subscribe(t, broker.URL(), topics.CmdReply())
+	startDaemon(t, Options{Config: cfg})
+
+	next := func(want string, within time.Duration) alarmEvent {
+		t.Helper()
+		var ev alarmEvent
+		events.WaitFor(topics.Events(), func(m mqtttest.Message) bool {
+			if json.Unmarshal(m.Payload, &ev) != nil || ev.Type != "alarm" {
+				return false
+			}
+			return ev.To == want
+		}, within)
+		return ev
+	}
+	command := func(body string) {
+		t.Helper()
+		c := paho.NewClient(paho.NewClientOptions().AddBroker(broker.URL()).SetClientID("alarm-test-operator"))
+		if tok := c.Connect(); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+			t.Fatal(tok.Error())
+		}
+		defer c.Disconnect(100)
+		if tok := c.Publish(topics.Cmd(), 1, false, `{"command":`+body+`}`); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+			t.Fatal(tok.Error())
+		}
+		m := replies.WaitFor(topics.CmdReply(), nil, 5*time.Second)
+		var r commandReply
+		if err := json.Unmarshal(m.Payload, &r); err != nil || !r.OK {
+			t.Fatalf("command %s: reply %s", body, m.Payload)
+		}
+	}
+
+	// Let the daemon come up, then heat the strand.
+	hot := time.Now()
+	setBlackbody(t, srv, 1, 1500)
+	ev := next("unacknowledged", 5*time.Second)
+	// One poll period (50 ms) plus the on-delay (200 ms), with room for
+	// the broker round trips of a loaded test machine.
+	if d := time.Since(hot); d > 2*time.Second || ev.Priority != "high" || ev.Message != "strand too hot" || !ev.Active {
+		t.Errorf("activation after %v: %+v", d, ev)
+	}
+	command(`{"id":"a1","action":"acknowledge","by":"op-7","head":"strand","alarm":"high"}`)
+	if ev := next("acknowledged", 5*time.Second); ev.By != "op-7" {
+		t.Errorf("acknowledged by %q, want op-7", ev.By)
+	}
+	setBlackbody(t, srv, 1, 1400)
+	next("normal", 5*time.Second)
+
+	until := time.Now().Add(1500 * time.Millisecond).UTC().Format(time.RFC3339Nano)
+	command(fmt.Sprintf(`{"id":"a2","action":"shelve","by":"op-7","head":"strand","alarm":"high","until":"%s"}`, until))
+	next("shelved", 5*time.Second)
+	shelvedAt := time.Now()
+	ev = next("normal", 5*time.Second)
+	if ev.Reason != "shelve_expired" || time.Since(shelvedAt) > 3*time.Second {
+		t.Errorf("after shelving: %+v (after %v)", ev, time.Since(shelvedAt))
+	}
+}
