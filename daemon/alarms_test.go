@@ -3,6 +3,7 @@ package daemon
 import (
 	"encoding/json"
 	"fmt"
+	"strings"
 	"testing"
 	"time"
 
@@ -55,20 +56,45 @@ heads:
 		}, within)
 		return ev
 	}
-	command := func(body string) {
+	send := func(msg string) commandReply {
 		t.Helper()
 		c := paho.NewClient(paho.NewClientOptions().AddBroker(broker.URL()).SetClientID("alarm-test-operator"))
 		if tok := c.Connect(); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
 			t.Fatal(tok.Error())
 		}
 		defer c.Disconnect(100)
-		if tok := c.Publish(topics.Cmd(), 1, false, `{"command":`+body+`}`); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+		if tok := c.Publish(topics.Cmd(), 1, false, msg); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
 			t.Fatal(tok.Error())
 		}
 		m := replies.WaitFor(topics.CmdReply(), nil, 5*time.Second)
 		var r commandReply
-		if err := json.Unmarshal(m.Payload, &r); err != nil || !r.OK {
-			t.Fatalf("command %s: reply %s", body, m.Payload)
+		if err := json.Unmarshal(m.Payload, &r); err != nil {
+			t.Fatalf("reply %s: %v", m.Payload, err)
+		}
+		return r
+	}
+	command := func(body string) {
+		t.Helper()
+		if r := send(`{"command":` + body + `}`); !r.OK {
+			t.Fatalf("command %s: %+v", body, r)
+		}
+	}
+
+	// The daemon is connected, and subscribed to commands, once its
+	// readings flow.
+	readings := mqtttest.Subscribe(t, broker.URL(), topics.Reading("strand"))
+	readings.WaitFor(topics.Reading("strand"), nil, 10*time.Second)
+
+	// Bad commands get error replies, and the daemon carries on.
+	for _, bad := range []string{
+		`{"command":`,
+		`{"command":{"id":"b1","action":"acknowledge","by":"op-7","head":"strand"}}`,
+		`{"command":{"id":"b2","action":"acknowledge","by":"op-7","head":"strand","alarm":"nosuch"}}`,
+		`{"command":{"id":"b3","action":"launch"}}`,
+		`{"command":{"id":"b4","action":"republish","by":"` + strings.Repeat("x", 5000) + `"}}`,
+	} {
+		if r := send(bad); r.OK || r.Error == "" {
+			t.Errorf("command %.60s: reply %+v, want an error", bad, r)
 		}
 	}
 
