@@ -140,14 +140,17 @@ func (d *Daemon) evaluate(h *head, r *mqtt.Reading) {
 		return
 	}
 	other := math.NaN()
-	ha.mu.Lock()
-	defer ha.mu.Unlock()
 	for _, name := range ha.other {
 		other = d.latestKelvin(name)
 		break
 	}
+	ha.mu.Lock()
 	ha.events = ha.set.Evaluate(sample(r, h.unit, other), ha.events[:0])
-	d.announce(h, ha)
+	changed := d.announce(h, ha)
+	ha.mu.Unlock()
+	if changed {
+		d.feedAlarms()
+	}
 }
 
 // latestKelvin is a head's latest processed temperature in kelvin, NaN
@@ -172,17 +175,21 @@ func (d *Daemon) tickAlarms(now time.Time) {
 		if ha := h.alarms; ha != nil {
 			ha.mu.Lock()
 			ha.events = ha.set.Tick(now, ha.events[:0])
-			d.announce(h, ha)
+			changed := d.announce(h, ha)
 			ha.mu.Unlock()
+			if changed {
+				d.feedAlarms()
+			}
 		}
 	}
 }
 
 // announce publishes the events in ha.events and the new retained states
-// of the alarms they concern, and saves the states. ha.mu is held.
-func (d *Daemon) announce(h *head, ha *headAlarms) {
+// of the alarms they concern, and saves the states; it reports whether
+// there were any. ha.mu is held.
+func (d *Daemon) announce(h *head, ha *headAlarms) bool {
 	if len(ha.events) == 0 {
-		return
+		return false
 	}
 	cfg := d.config()
 	topics := mqttTopics(cfg)
@@ -203,6 +210,7 @@ func (d *Daemon) announce(h *head, ha *headAlarms) {
 		}
 	}
 	d.saveAlarms(h, ha)
+	return true
 }
 
 // valueOf expresses an alarm's value for publishing: temperatures in the
@@ -326,7 +334,13 @@ func (d *Daemon) alarmAction(action, headName, alarm, by string, until time.Time
 	}
 	ha := h.alarms
 	ha.mu.Lock()
-	defer ha.mu.Unlock()
+	changed := false
+	defer func() {
+		ha.mu.Unlock()
+		if changed {
+			d.feedAlarms()
+		}
+	}()
 	a := ha.set.Alarm(alarm)
 	if a == nil {
 		return fmt.Errorf("head %s has no alarm %q", headName, alarm)
@@ -346,7 +360,7 @@ func (d *Daemon) alarmAction(action, headName, alarm, by string, until time.Time
 	if err != nil {
 		return err
 	}
-	d.announce(h, ha)
+	changed = d.announce(h, ha)
 	return nil
 }
 

@@ -32,6 +32,7 @@ import (
 	"glowgate/bus/mqtt"
 	"glowgate/convert"
 	"glowgate/daemon/config"
+	"glowgate/daemon/status"
 )
 
 // Options configure a Daemon.
@@ -46,8 +47,11 @@ type Options struct {
 	// StateDir, when not empty, replaces the configured state directory
 	// (the durable outbox lives there).
 	StateDir string
-	Logger   *slog.Logger
-	Version  string
+	// HTTPListen, when not empty, replaces the configured address of the
+	// status page.
+	HTTPListen string
+	Logger     *slog.Logger
+	Version    string
 	// Now is the clock for acquisition times; nil means time.Now.
 	Now func() time.Time
 }
@@ -69,7 +73,9 @@ type Daemon struct {
 	// savedAlarms holds every head's latest alarm states, as written to
 	// the state directory.
 	savedAlarms map[string][]alarms.Saved
-	gate        *commandGate // nil: commands are off
+	gate        *commandGate   // nil: commands are off
+	status      *status.Server // nil: no status page
+	lines       []*modbus.Line // the running line owners
 }
 
 // New checks that every head of the configuration can be built.
@@ -148,6 +154,8 @@ func (d *Daemon) Run(ctx context.Context) error {
 	}
 	defer func() { stopPub() }()
 	d.publishAllAlarmStates()
+	stopStatus := d.startStatus(ctx)
+	defer stopStatus()
 	tickDone := make(chan struct{})
 	tickCtx, stopTicking := context.WithCancel(ctx)
 	go func() {
@@ -248,6 +256,8 @@ func (d *Daemon) reload() (newPublisher bool) {
 			}
 			d.mu.Unlock()
 			d.log.Info("configuration reloaded", "heads", len(heads))
+			d.feedHeads()
+			d.feedAlarms()
 			if publisherChanged(old, cfg) {
 				return true
 			}
@@ -411,6 +421,12 @@ func (d *Daemon) poll(ctx context.Context) error {
 	d.mu.Unlock()
 	topics := mqttTopics(cfg)
 	g, ctx := errgroup.WithContext(ctx)
+	var lines []*modbus.Line
+	defer func() {
+		d.mu.Lock()
+		d.lines = nil
+		d.mu.Unlock()
+	}()
 	for _, b := range buses(cfg, d.log) {
 		var mine []*head
 		for _, h := range heads {
@@ -438,6 +454,9 @@ func (d *Daemon) poll(ctx context.Context) error {
 			}
 			d.publish(topicOf[res.Poll], pub, r)
 			d.evaluate(h, &r)
+			if srv := d.status; srv != nil {
+				srv.Reading(&r)
+			}
 		}
 		line := modbus.NewLine(modbus.LineConfig{
 			Name:       b.name,
@@ -446,6 +465,7 @@ func (d *Daemon) poll(ctx context.Context) error {
 			Logger:     d.log.With(b.kind, b.name),
 			Now:        d.now,
 		}, b.open(), polls, deliver)
+		lines = append(lines, line)
 		g.Go(func() error {
 			if err := line.Run(ctx); err != nil && !errors.Is(err, context.Canceled) {
 				return fmt.Errorf("%s %s: %w", b.kind, b.name, err)
@@ -453,6 +473,9 @@ func (d *Daemon) poll(ctx context.Context) error {
 			return nil
 		})
 	}
+	d.mu.Lock()
+	d.lines = lines
+	d.mu.Unlock()
 	return g.Wait()
 }
 

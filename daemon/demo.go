@@ -19,6 +19,9 @@ type DemoOptions struct {
 	// BrokerListen is where the embedded broker listens; empty means
 	// 127.0.0.1:1883, or a free loopback port when that one is taken.
 	BrokerListen string
+	// HTTP is where the status page is served; empty means
+	// 127.0.0.1:8080, or a free loopback port when that one is taken.
+	HTTP string
 	// Out receives the banner and the live summary.
 	Out io.Writer
 	// SummaryEvery is the interval of the live summary (default 5 s).
@@ -62,11 +65,16 @@ func Demo(ctx context.Context, o DemoOptions) error {
 	}
 	defer simulator.Close()
 
+	httpAddr := o.HTTP
+	if httpAddr == "" {
+		httpAddr = availableAddr("127.0.0.1:8080")
+	}
 	d, err := New(Options{
-		Config:  cfg,
-		Brokers: []string{"tcp://" + broker.Addr()},
-		Logger:  o.Logger,
-		Version: o.Version,
+		Config:     cfg,
+		HTTPListen: httpAddr,
+		Brokers:    []string{"tcp://" + broker.Addr()},
+		Logger:     o.Logger,
+		Version:    o.Version,
 	})
 	if err != nil {
 		return err
@@ -78,6 +86,7 @@ func Demo(ctx context.Context, o DemoOptions) error {
 		fmt.Fprintf(o.Out, "  simulated heads:   %s (%s)\n", addr, name)
 	}
 	fmt.Fprintf(o.Out, "  subscribe with:    mosquitto_sub -h %s -p %s -t '%s/#' -v\n", host, port, cfg.MQTT.Root)
+	fmt.Fprintf(o.Out, "  status page:       http://%s/\n", httpAddr)
 	fmt.Fprintf(o.Out, "  stop with Ctrl-C\n")
 
 	done := make(chan error, 1)

@@ -19,6 +19,7 @@ type Config struct {
 	C2Name    string  // "its90" (default) or "codata2018"
 	StateDir  string  // durable state (outbox, alarm states); empty: none, readings wait in memory
 	Commands  Commands
+	HTTP      HTTP
 	MQTT      MQTT
 	Endpoints []Endpoint
 	Lines     []Line

@@ -218,6 +218,7 @@ func TestDefaults(t *testing.T) {
 		C2:       0.014388, // ITS-90 (Preston-Thomas, Metrologia 27, 3, 1990)
 		C2Name:   "its90",
 		Commands: Commands{Enabled: true, ReplayWindow: 30 * time.Second},
+		HTTP:     HTTP{Listen: "127.0.0.1:8080"},
 		MQTT: MQTT{
 			Root:           "glowgate",
 			ClientID:       "glowgate-gw",
@@ -364,7 +365,7 @@ heads:
 `
 	// templates is no schema key: the merge works, the extra key is refused.
 	_, err := Parse("aliases.yaml", []byte(doc))
-	if err == nil || err.Error() != "aliases.yaml:4: templates: unknown key (want gateway, unit, c2, state_dir, mqtt, commands, endpoints, lines or heads)" {
+	if err == nil || err.Error() != "aliases.yaml:4: templates: unknown key (want gateway, unit, c2, state_dir, mqtt, commands, http, endpoints, lines or heads)" {
 		t.Fatalf("got %v", err)
 	}
 	const ok = `

@@ -51,8 +51,9 @@ func (d *decoder) config(root val) *Config {
 			Queue:          defaultQueue,
 		},
 	}
-	f := d.fields(root, "gateway", "unit", "c2", "state_dir", "mqtt", "commands", "endpoints", "lines", "heads")
+	f := d.fields(root, "gateway", "unit", "c2", "state_dir", "mqtt", "commands", "http", "endpoints", "lines", "heads")
 	c.StateDir = d.stateDir(f.get("state_dir"))
+	c.HTTP = d.http(f.get("http"))
 	c.Commands = d.commands(f.get("commands"))
 	if v := f.required("gateway"); v.n != nil {
 		if s, ok := d.str(v); ok && d.topicLevel(v, s, false) {

@@ -215,3 +215,58 @@ func redacted(p string) string {
 	}
 	return fmt.Sprintf("set (%d characters, not shown)", len(p))
 }
+
+// defaultHTTPListen is where the status page, /metrics and /healthz are
+// served unless the configuration says otherwise.
+const defaultHTTPListen = "127.0.0.1:8080"
+
+// HTTP configures the status page, /metrics and /healthz.
+type HTTP struct {
+	Listen string // host:port; empty: off
+	Token  string // operator token for acknowledge and shelve; empty: the page is read-only
+}
+
+// http decodes the http section.
+func (d *decoder) http(v val) HTTP {
+	h := HTTP{Listen: defaultHTTPListen}
+	if v.n == nil {
+		return h
+	}
+	f := d.fields(v, "listen", "token_file", "token_env")
+	if lv := f.get("listen"); lv.n != nil {
+		if s, ok := d.str(lv); ok {
+			if s != "" {
+				if err := checkAddress(s); err != nil {
+					d.errorf(lv, "%v", err)
+				}
+			}
+			h.Listen = s
+		}
+	}
+	tf, te := f.get("token_file"), f.get("token_env")
+	switch {
+	case tf.n != nil && te.n != nil:
+		d.errorf(te, "give token_file or token_env, not both")
+	case tf.n != nil:
+		if s, ok := d.str(tf); ok {
+			b, err := os.ReadFile(d.relative(s))
+			if err != nil {
+				d.errorf(tf, "%v", err)
+			} else {
+				h.Token = strings.TrimSpace(string(b))
+			}
+		}
+	case te.n != nil:
+		if s, ok := d.str(te); ok {
+			val, set := os.LookupEnv(s)
+			if !set {
+				d.errorf(te, "environment variable %s is not set", s)
+			}
+			h.Token = val
+		}
+	}
+	if h.Token != "" && len(h.Token) < 16 {
+		d.errorf(v, "the operator token is shorter than 16 characters")
+	}
+	return h
+}
