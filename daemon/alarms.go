@@ -115,6 +115,12 @@ type alarmEvent struct {
 	Message  string   `json:"message,omitempty"`
 	By       string   `json:"by,omitempty"`
 	Reason   string   `json:"reason"`
+	// Chattering: the alarm activated three or more times within the
+	// last minute (the usual figure; common practice, no source).
+	Chattering bool `json:"chattering,omitempty"`
+	// Flood: more than ten annunciations in the last ten minutes at this
+	// gateway (ISA-18.2's flood figure, per operator).
+	Flood bool `json:"flood,omitempty"`
 }
 
 // alarmState is the retained payload of <root>/<gateway>/<head>/alarm/<alarm>.
@@ -194,7 +200,15 @@ func (d *Daemon) announce(h *head, ha *headAlarms) bool {
 	cfg := d.config()
 	topics := mqttTopics(cfg)
 	for _, e := range ha.events {
+		key := h.cfg.Name + "/" + e.Alarm
+		d.floodMu.Lock()
+		fe := e
+		fe.Alarm = key
+		d.flood.Observe(fe)
+		chattering, flooding := d.flood.Chattering(key, e.Time), d.flood.Flooding(e.Time)
+		d.floodMu.Unlock()
 		ev := alarmEvent{
+			Chattering: chattering, Flood: flooding,
 			Type: "alarm", Gateway: cfg.Gateway, Head: h.cfg.Name, Alarm: e.Alarm,
 			Time: e.Time.UTC().Format(mqtt.TimeLayout), From: e.From.String(), To: e.To.String(),
 			Active: e.Active, Value: h.valueOf(e.Value, e.Alarm), Priority: e.Priority.String(),
@@ -380,4 +394,12 @@ func (d *Daemon) publishAllAlarmStates() {
 			ha.mu.Unlock()
 		}
 	}
+}
+
+// alarmLoad is the gateway's alarm load at now: annunciations within the
+// last ten minutes, and the alarms ("head/alarm") that chatter.
+func (d *Daemon) alarmLoad(now time.Time) (annunciations int, chattering []string) {
+	d.floodMu.Lock()
+	defer d.floodMu.Unlock()
+	return d.flood.Annunciations(now), d.flood.AppendChattering(now, nil)
 }

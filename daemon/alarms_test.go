@@ -3,6 +3,8 @@ package daemon
 import (
 	"encoding/json"
 	"fmt"
+	"net/http"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -10,8 +12,11 @@ import (
 	"glowgate/bus/modbus/modbustest"
 	"glowgate/bus/mqtt"
 	"glowgate/bus/mqtt/mqtttest"
+	"glowgate/daemon/config"
 
 	paho "github.com/eclipse/paho.mqtt.golang"
+	"github.com/prometheus/common/expfmt"
+	"github.com/prometheus/common/model"
 )
 
 // TestAlarmEndToEnd: an over-temperature raises the head's high alarm
@@ -27,7 +32,7 @@ func TestAlarmEndToEnd(t *testing.T) {
 gateway: alarm-gw
 unit: K
 mqtt: {brokers: [%s]}
-state_dir: %s
+state_dir: "%s"
 endpoints: [{name: ep, address: %s, timeout: 200ms}]
 heads:
   - name: strand
@@ -122,4 +127,129 @@ heads:
 	if ev.Reason != "shelve_expired" || time.Since(shelvedAt) > 3*time.Second {
 		t.Errorf("after shelving: %+v (after %v)", ev, time.Since(shelvedAt))
 	}
+}
+
+// alarmConfig is one head with a high alarm and no delays, for the
+// annunciation measurements.
+func alarmConfig(t testing.TB, broker, endpoint string) *config.Config {
+	return parseConfig(t, fmt.Sprintf(`
+gateway: alarm-gw
+unit: K
+mqtt: {brokers: [%s], queue: 100000}
+state_dir: "%s"
+endpoints: [{name: ep, address: %s, timeout: 200ms}]
+heads:
+  - name: strand
+    endpoint: ep
+    period: 10ms
+    range: {min: 700K, max: 2500K}
+    channels:
+      - {name: short, band: {from: 0.875um, to: 0.925um}, signal: {address: 0, type: float32}}
+      - {name: long, band: {from: 1.025um, to: 1.075um}, signal: {address: 2, type: float32}}
+    alarms:
+      - {name: high, kind: high, setpoint: 1450K, deadband: 5K, priority: high}
+`, broker, t.TempDir(), endpoint))
+}
+
+// TestAlarmMetrics: /metrics of a running daemon, parsed with the
+// Prometheus text parser (github.com/prometheus/common/expfmt), carries
+// the head's temperature and the alarm load; a chattering alarm is
+// counted and its events say so.
+func TestAlarmMetrics(t *testing.T) {
+	broker := mqtttest.Start(t)
+	srv := modbustest.NewServer(t)
+	setBlackbody(t, srv, 1, 1400)
+	cfg := alarmConfig(t, broker.URL(), srv.Addr())
+	events := mqtttest.Subscribe(t, broker.URL(), mqtt.Topics{Root: cfg.MQTT.Root, Gateway: cfg.Gateway}.Events())
+	d, err := New(Options{Config: cfg, HTTPListen: "127.0.0.1:0"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	done := make(chan error, 1)
+	go func() { done <- d.Run(t.Context()) }()
+	t.Cleanup(func() { <-done })
+
+	// Three activations within a second: chattering.
+	var ev alarmEvent
+	for range 3 {
+		setBlackbody(t, srv, 1, 1500)
+		events.WaitFor("", func(m mqtttest.Message) bool {
+			return json.Unmarshal(m.Payload, &ev) == nil && ev.To == "unacknowledged"
+		}, 5*time.Second)
+		setBlackbody(t, srv, 1, 1400)
+		events.WaitFor("", func(m mqtttest.Message) bool { return json.Unmarshal(m.Payload, &ev) == nil && ev.Active == false }, 5*time.Second)
+	}
+	if !ev.Chattering {
+		t.Errorf("after three activations in a second the events do not say chattering: %+v", ev)
+	}
+	var addr string
+	for addr == "" {
+		addr = d.StatusAddr()
+	}
+	resp, err := http.Get("http://" + addr + "/metrics")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	parser := expfmt.NewTextParser(model.UTF8Validation)
+	families, err := parser.TextToMetricFamilies(resp.Body)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if f := families["glowgate_alarm_annunciations_10m"]; f == nil || f.Metric[0].GetGauge().GetValue() < 3 {
+		t.Errorf("glowgate_alarm_annunciations_10m: %v", f)
+	}
+	if f := families["glowgate_alarms_chattering"]; f == nil || f.Metric[0].GetGauge().GetValue() != 1 {
+		t.Errorf("glowgate_alarms_chattering: %v", f)
+	}
+	if families["glowgate_temperature_celsius"] == nil {
+		t.Errorf("no glowgate_temperature_celsius in /metrics")
+	}
+}
+
+// BenchmarkAnnunciation measures the annunciation latency: from the
+// reading that completes the (zero) on-delay to the alarm event at a
+// subscriber of a real Mosquitto. The reading's time is when its poll was
+// sent, truncated to the millisecond, so the figures are upper bounds.
+// "outbox" runs with a state directory (the event is committed with fsync
+// before it is sent), "memory" without.
+//
+//	go test -run '^$' -bench Annunciation -benchtime 200x ./daemon/
+func BenchmarkAnnunciation(b *testing.B) {
+	b.Run("outbox", func(b *testing.B) { benchAnnunciation(b, true) })
+	b.Run("memory", func(b *testing.B) { benchAnnunciation(b, false) })
+}
+
+func benchAnnunciation(b *testing.B, durable bool) {
+	broker := mqtttest.Start(b)
+	srv := modbustest.NewServer(b)
+	setBlackbody(b, srv, 1, 1400)
+	cfg := alarmConfig(b, broker.URL(), srv.Addr())
+	if !durable {
+		cfg.StateDir = ""
+	}
+	events := mqtttest.Subscribe(b, broker.URL(), mqtt.Topics{Root: cfg.MQTT.Root, Gateway: cfg.Gateway}.Events())
+	startDaemon(b, Options{Config: cfg})
+	lat := make([]float64, 0, b.N)
+	var ev alarmEvent
+	b.ResetTimer()
+	for range b.N {
+		setBlackbody(b, srv, 1, 1500)
+		events.WaitFor("", func(m mqtttest.Message) bool {
+			if json.Unmarshal(m.Payload, &ev) != nil || ev.To != "unacknowledged" {
+				return false
+			}
+			at, _ := time.Parse(time.RFC3339Nano, ev.Time)
+			lat = append(lat, float64(time.Since(at).Microseconds())/1e3)
+			return true
+		}, 5*time.Second)
+		setBlackbody(b, srv, 1, 1400)
+		events.WaitFor("", func(m mqtttest.Message) bool { return json.Unmarshal(m.Payload, &ev) == nil && !ev.Active }, 5*time.Second)
+	}
+	b.StopTimer()
+	slices.Sort(lat)
+	b.ReportMetric(lat[len(lat)/2], "p50_ms")
+	b.ReportMetric(lat[len(lat)*99/100], "p99_ms")
+	b.ReportMetric(lat[len(lat)-1], "max_ms")
+	b.ReportMetric(0, "ns/op")
 }

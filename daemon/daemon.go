@@ -75,6 +75,8 @@ type Daemon struct {
 	savedAlarms map[string][]alarms.Saved
 	gate        *commandGate   // nil: commands are off
 	status      *status.Server // nil: no status page
+	floodMu     sync.Mutex
+	flood       alarms.Flood   // annunciations and activations, for flood and chatter
 	lines       []*modbus.Line // the running line owners
 }
 

@@ -29,7 +29,7 @@ func (d *Daemon) startStatus(ctx context.Context) (stop func()) {
 		Gateway:  cfg.Gateway,
 		Version:  d.opts.Version,
 		Logger:   d.log.With("part", "http"),
-		Registry: registry(),
+		Registry: d.registry(),
 		Act: func(_ context.Context, a status.Action) error {
 			return d.alarmAction(a.Kind, a.Head, a.Alarm, a.By, a.Until)
 		},
@@ -182,9 +182,23 @@ func (d *Daemon) lineStats() []modbus.LineStats {
 }
 
 // registry is the daemon's one metrics registry: the status page's
-// metrics, and the Go runtime's and the process's.
-func registry() *prometheus.Registry {
+// metrics, the alarm load, and the Go runtime's and the process's.
+func (d *Daemon) registry() *prometheus.Registry {
 	r := prometheus.NewRegistry()
 	r.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	r.MustRegister(prometheus.NewGaugeFunc(prometheus.GaugeOpts{
+		Name: "glowgate_alarm_annunciations_10m",
+		Help: "Alarm annunciations at this gateway within the last ten minutes (ISA-18.2 calls more than 10 a flood).",
+	}, func() float64 {
+		n, _ := d.alarmLoad(d.now())
+		return float64(n)
+	}))
+	r.MustRegister(prometheus.NewGaugeFunc(prometheus.GaugeOpts{
+		Name: "glowgate_alarms_chattering",
+		Help: "Alarms that activated three or more times within the last minute.",
+	}, func() float64 {
+		_, c := d.alarmLoad(d.now())
+		return float64(len(c))
+	}))
 	return r
 }

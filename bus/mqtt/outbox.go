@@ -249,7 +249,10 @@ func (b *Outbox) Append(kind EntryKind, topic string, retain bool, payload func(
 		return 0, err
 	}
 	signal(b.work)
-	if urgent {
+	// Events and states (alarm annunciations) are committed at once
+	// rather than with the next group: an alarm must not wait up to a
+	// commit interval to reach the operator.
+	if urgent || kind != KindReading {
 		signal(b.kick)
 	}
 	return seq, nil
