@@ -45,6 +45,7 @@ func (d *Daemon) startStatus(ctx context.Context) (stop func()) {
 	srv.SetLineStats(d.lineStats)
 	d.feedHeads()
 	d.feedAlarms()
+	d.feedHealth()
 	d.log.Info("status page", "url", "http://"+srv.Addr()+"/")
 	ctx, cancel := context.WithCancel(ctx)
 	done := make(chan struct{}, 2)
