@@ -128,6 +128,7 @@ type alarmState struct {
 	Gateway      string   `json:"gateway"`
 	Head         string   `json:"head"`
 	Alarm        string   `json:"alarm"`
+	Seq          uint64   `json:"seq"`
 	State        string   `json:"state"`
 	Active       bool     `json:"active"`
 	Priority     string   `json:"priority"`
@@ -256,8 +257,11 @@ func (d *Daemon) publishAlarmState(h *head, a *alarms.Alarm, now time.Time) {
 	if !st.ShelvedUntil.IsZero() {
 		p.ShelvedUntil = st.ShelvedUntil.UTC().Format(mqtt.TimeLayout)
 	}
-	b, _ := json.Marshal(p)
-	d.append(mqtt.KindState, mqttTopics(cfg).Alarm(h.cfg.Name, st.Name), true, func(uint64) []byte { return b })
+	d.append(mqtt.KindState, mqttTopics(cfg).Alarm(h.cfg.Name, st.Name), true, func(seq uint64) []byte {
+		p.Seq = seq
+		b, _ := json.Marshal(p)
+		return b
+	})
 }
 
 // append sends an event or state through the durable outbox when there
