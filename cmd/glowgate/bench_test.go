@@ -39,13 +39,31 @@ var rssFor = flag.Duration("rss-for", time.Minute, "how long BenchmarkRunRSS let
 func BenchmarkRunEndToEnd(b *testing.B) {
 	for _, bc := range []struct {
 		name   string
+		heads  int
 		period time.Duration
 	}{
-		{"flat-out", 2 * time.Millisecond},
-		{"1000/s", 50 * time.Millisecond},
+		{"heads=50/flat-out", 50, 2 * time.Millisecond},
+		{"heads=50/1000-per-s", 50, 50 * time.Millisecond},
+		{"heads=64/10Hz", 64, 100 * time.Millisecond},
 	} {
-		b.Run(bc.name, func(b *testing.B) { benchRun(b, 50, bc.period) })
+		b.Run(bc.name, func(b *testing.B) { benchRun(b, bc.heads, bc.period) })
 	}
+}
+
+// procCPU is the CPU time a process has used so far (user + system),
+// from /proc/PID/stat in clock ticks of 10 ms (USER_HZ = 100 on Linux;
+// proc(5)).
+func procCPU(tb testing.TB, pid int) time.Duration {
+	tb.Helper()
+	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/stat", pid))
+	if err != nil {
+		tb.Fatal(err)
+	}
+	// Fields after the command name, which is in parentheses and may hold spaces.
+	f := strings.Fields(string(b[strings.LastIndexByte(string(b), ')')+2:]))
+	utime, _ := strconv.ParseInt(f[11], 10, 64)
+	stime, _ := strconv.ParseInt(f[12], 10, 64)
+	return time.Duration(utime+stime) * 10 * time.Millisecond
 }
 
 func benchRun(b *testing.B, n int, period time.Duration) {
@@ -59,7 +77,7 @@ func benchRun(b *testing.B, n int, period time.Duration) {
 	text := strings.ReplaceAll(gatewayConfig(broker.URL(), srv.Addr(), names...), "period: 50ms", "period: "+period.String())
 	writeFile(b, cfgPath, strings.Replace(text, "mqtt:\n", "mqtt:\n  queue: 200000\n", 1))
 	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
-	start(b, io.Discard, "run", "-config", cfgPath, "-log-level", "warn")
+	p := start(b, io.Discard, "run", "-config", cfgPath, "-log-level", "warn")
 	for i := 0; i < 2*n; i++ { // warm up: connected, every head answered
 		if _, ok := sub.Next(10 * time.Second); !ok {
 			b.Fatal("no readings")
@@ -68,6 +86,7 @@ func benchRun(b *testing.B, n int, period time.Duration) {
 
 	b.ResetTimer()
 	began := time.Now()
+	cpu0 := procCPU(b, p.cmd.Process.Pid)
 	lat := make([]float64, 0, b.N)
 	var r struct {
 		Time time.Time `json:"time"`
@@ -83,8 +102,15 @@ func benchRun(b *testing.B, n int, period time.Duration) {
 		}
 		lat = append(lat, float64(at.Sub(r.Time).Microseconds())/1e3)
 	}
-	rate := float64(len(lat)) / time.Since(began).Seconds()
+	elapsed := time.Since(began)
+	cpu := procCPU(b, p.cmd.Process.Pid) - cpu0
+	rss, _ := procMemory(b, p.cmd.Process.Pid)
+	rate := float64(len(lat)) / elapsed.Seconds()
 	b.StopTimer()
+	// CPU of the daemon process per 1,000 readings/s: the share of one
+	// core it needs for that rate.
+	b.ReportMetric(cpu.Seconds()/elapsed.Seconds()/(rate/1000)*100, "cpu%_per_1000/s")
+	b.ReportMetric(rss, "rss_MB")
 	slices.Sort(lat)
 	b.ReportMetric(rate, "readings/s")
 	b.ReportMetric(lat[len(lat)/2], "p50_ms")
@@ -99,7 +125,8 @@ func benchRun(b *testing.B, n int, period time.Duration) {
 // BenchmarkRunRSS runs the glowgate binary with 50 heads polled at 10 Hz
 // (500 readings/s) against a loopback Modbus responder and a real
 // Mosquitto, and reports its resident set size after -rss-for (default a
-// minute), with the peak (VmHWM) beside it.
+// minute), with the peak (VmHWM) beside it. The status page is on, as by
+// default; GLOWGATE_RSS_NO_HTTP=1 measures without it.
 //
 //	go test -run '^$' -bench RunRSS -benchtime 1x ./cmd/glowgate/
 func BenchmarkRunRSS(b *testing.B) {
@@ -111,6 +138,9 @@ func BenchmarkRunRSS(b *testing.B) {
 	}
 	cfgPath := filepath.Join(b.TempDir(), "gw.yaml")
 	text := strings.ReplaceAll(gatewayConfig(broker.URL(), srv.Addr(), names...), "period: 50ms", "period: 100ms")
+	if os.Getenv("GLOWGATE_RSS_NO_HTTP") != "" {
+		text = strings.Replace(text, "unit: degC\n", "unit: degC\nhttp: {listen: \"\"}\n", 1)
+	}
 	writeFile(b, cfgPath, text)
 	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
 

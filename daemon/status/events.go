@@ -8,7 +8,7 @@ import (
 
 // Live stream parameters.
 const (
-	ringSize       = 4096                   // recent reading events kept for the live stream
+	ringSize       = 1024                   // recent reading events kept for the live stream: seconds of headroom at hundreds of readings a second
 	liveInterval   = 250 * time.Millisecond // least time between two batches to one browser
 	healthInterval = 2 * time.Second        // health (line rates) is re-sent this often
 	pingInterval   = 15 * time.Second       // a comment line keeps idle connections open
