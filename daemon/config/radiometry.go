@@ -143,7 +143,7 @@ func (d *decoder) radiometry(f *fields, h *Head) {
 		}
 		if channelsOK && eps.n.Kind == yaml.SequenceNode && len(items) != n {
 			d.errorf(eps, "has %d values for %d channels", len(items), n)
-		} else if !d.failed[eps.path] && len(vals) == n {
+		} else if !d.failed[eps.path] && len(vals) == n && n > 0 {
 			h.Emissivity = vals
 			h.EmissivityRatio = vals[0] / vals[n-1]
 		}
