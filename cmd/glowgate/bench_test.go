@@ -14,6 +14,7 @@ import (
 	"testing"
 	"time"
 
+	"glowgate/bus/modbus"
 	"glowgate/bus/mqtt/mqtttest"
 )
 
@@ -188,4 +189,52 @@ func procMemory(tb testing.TB, pid int) (rss, hwm float64) {
 		}
 	}
 	return rss, hwm
+}
+
+// BenchmarkRunAnnunciation measures the annunciation latency of the
+// glowgate binary as its own process, with a state directory (every
+// event committed with fsync before it is sent): from the reading that
+// completes a zero on-delay to the alarm event at a subscriber of a real
+// Mosquitto. An event's time is its poll's send time truncated to the
+// millisecond, so the figures are upper bounds.
+//
+//	go test -run '^$' -bench RunAnnunciation -benchtime 200x ./cmd/glowgate/
+func BenchmarkRunAnnunciation(b *testing.B) {
+	broker := mqtttest.Start(b)
+	srv := headServer(b, 1, 1400)
+	dir := b.TempDir()
+	cfgPath := filepath.Join(dir, "gw.yaml")
+	text := strings.Replace(gatewayConfig(broker.URL(), srv.Addr(), "strand"), "period: 50ms", "period: 10ms", 1)
+	text = strings.Replace(text, "unit: degC\n", "unit: degC\nhttp: {listen: \"\"}\n", 1)
+	text += "    alarms:\n      - {name: high, kind: high, setpoint: 1450K, deadband: 5K, priority: high}\n"
+	writeFile(b, cfgPath, text)
+	events := mqtttest.Subscribe(b, broker.URL(), "glowgate/lifecycle-gw/events")
+	start(b, io.Discard, "run", "-config", cfgPath, "-state-dir", filepath.Join(dir, "state"), "-log-level", "warn")
+	hot, cold := blackbodyRegisters(b, 1500), blackbodyRegisters(b, 1400)
+	var ev struct {
+		To     string `json:"to"`
+		Active bool   `json:"active"`
+		Time   string `json:"time"`
+	}
+	lat := make([]float64, 0, b.N)
+	b.ResetTimer()
+	for range b.N {
+		srv.Set(1, modbus.InputRegisters, 0, hot...)
+		events.WaitFor("", func(m mqtttest.Message) bool {
+			if json.Unmarshal(m.Payload, &ev) != nil || ev.To != "unacknowledged" {
+				return false
+			}
+			at, _ := time.Parse(time.RFC3339Nano, ev.Time)
+			lat = append(lat, float64(time.Since(at).Microseconds())/1e3)
+			return true
+		}, 10*time.Second)
+		srv.Set(1, modbus.InputRegisters, 0, cold...)
+		events.WaitFor("", func(m mqtttest.Message) bool { return json.Unmarshal(m.Payload, &ev) == nil && !ev.Active }, 10*time.Second)
+	}
+	b.StopTimer()
+	slices.Sort(lat)
+	b.ReportMetric(lat[len(lat)/2], "p50_ms")
+	b.ReportMetric(lat[len(lat)*99/100], "p99_ms")
+	b.ReportMetric(lat[len(lat)-1], "max_ms")
+	b.ReportMetric(0, "ns/op")
 }

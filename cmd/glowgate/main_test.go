@@ -66,10 +66,10 @@ func gatewayConfig(broker, endpoint string, heads ...string) string {
 	return b.String()
 }
 
-// headServer serves n units with the band signals of a blackbody at tk.
-func headServer(t testing.TB, n int, tk float64) *modbustest.Server {
+// blackbodyRegisters are the four registers of the band signals of a
+// blackbody at tk, float32 at 0 and 2.
+func blackbodyRegisters(t testing.TB, tk float64) []uint16 {
 	t.Helper()
-	srv := modbustest.NewServer(t)
 	regs := make([]uint16, 4)
 	for i, band := range [][2]float64{{0.875e-6, 0.925e-6}, {1.025e-6, 1.075e-6}} {
 		m, err := convert.NewBand(band[0], band[1], convert.C2ITS90)
@@ -81,6 +81,14 @@ func headServer(t testing.TB, n int, tk float64) *modbustest.Server {
 			t.Fatal(err)
 		}
 	}
+	return regs
+}
+
+// headServer serves n units with the band signals of a blackbody at tk.
+func headServer(t testing.TB, n int, tk float64) *modbustest.Server {
+	t.Helper()
+	srv := modbustest.NewServer(t)
+	regs := blackbodyRegisters(t, tk)
 	for unit := 1; unit <= n; unit++ {
 		srv.Set(uint8(unit), modbus.InputRegisters, 0, regs...)
 	}
