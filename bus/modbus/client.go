@@ -110,34 +110,54 @@ func (c *Client) Read(ctx context.Context, r Request) ([]uint16, error) {
 	if err := r.Validate(); err != nil {
 		return nil, fmt.Errorf("%v: %w", r, err)
 	}
+	c.framer.SlaveId = r.Unit
+	c.tr.ctx, c.tr.deadline = ctx, transactionDeadline(ctx, c.timeout)
+	regs, err := readRegisters(c.mb, r, c.regs)
+	c.tr.ctx = nil
+	if err != nil {
+		c.tr.close()
+		return nil, err
+	}
+	c.regs = regs[:cap(regs)]
+	return regs, nil
+}
+
+// transactionDeadline is the one deadline of a transaction: the earlier of
+// now + timeout (none when timeout ≤ 0) and ctx's deadline.
+func transactionDeadline(ctx context.Context, timeout time.Duration) time.Time {
 	deadline := time.Time{}
-	if c.timeout > 0 {
-		deadline = time.Now().Add(c.timeout)
+	if timeout > 0 {
+		deadline = time.Now().Add(timeout)
 	}
 	if d, ok := ctx.Deadline(); ok && (deadline.IsZero() || d.Before(deadline)) {
 		deadline = d
 	}
-	c.framer.SlaveId = r.Unit
-	c.tr.ctx, c.tr.deadline = ctx, deadline
+	return deadline
+}
+
+// readRegisters runs r through a goburrow client (which frames, sends and
+// checks transaction, unit and function) and checks what goburrow does
+// not: that the answer holds exactly the registers asked for. It decodes
+// them into buf's storage (grown to MaxQuantity when short). Errors are
+// classified (see Kind) and name the request.
+func readRegisters(mb gmodbus.Client, r Request, buf []uint16) ([]uint16, error) {
 	var b []byte
 	var err error
 	if r.Table == HoldingRegisters {
-		b, err = c.mb.ReadHoldingRegisters(r.Address, r.Quantity)
+		b, err = mb.ReadHoldingRegisters(r.Address, r.Quantity)
 	} else {
-		b, err = c.mb.ReadInputRegisters(r.Address, r.Quantity)
+		b, err = mb.ReadInputRegisters(r.Address, r.Quantity)
 	}
-	c.tr.ctx = nil
 	if err == nil && len(b) != 2*int(r.Quantity) {
 		err = fmt.Errorf("%w: %d registers for %d asked", ErrShortResponse, len(b)/2, r.Quantity)
 	}
 	if err != nil {
-		c.tr.close()
 		return nil, fmt.Errorf("%v: %w", r, classify(err, r.Table.function()))
 	}
-	if cap(c.regs) < int(r.Quantity) {
-		c.regs = make([]uint16, MaxQuantity)
+	if cap(buf) < int(r.Quantity) {
+		buf = make([]uint16, MaxQuantity)
 	}
-	regs := c.regs[:r.Quantity]
+	regs := buf[:r.Quantity]
 	for i := range regs {
 		regs[i] = binary.BigEndian.Uint16(b[2*i:])
 	}

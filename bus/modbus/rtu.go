@@ -2,7 +2,6 @@ package modbus
 
 import (
 	"context"
-	"encoding/binary"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -226,36 +225,14 @@ func (c *RTUClient) Read(ctx context.Context, r Request) ([]uint16, error) {
 	if c.cfgErr != nil {
 		return nil, fmt.Errorf("%v: %w: %v", r, ErrConnection, c.cfgErr)
 	}
-	deadline := time.Time{}
-	if c.cfg.Timeout > 0 {
-		deadline = time.Now().Add(c.cfg.Timeout)
-	}
-	if d, ok := ctx.Deadline(); ok && (deadline.IsZero() || d.Before(deadline)) {
-		deadline = d
-	}
 	c.framer.SlaveId = r.Unit
-	c.tr.ctx, c.tr.deadline, c.tr.req = ctx, deadline, r
-	var b []byte
-	var err error
-	if r.Table == HoldingRegisters {
-		b, err = c.mb.ReadHoldingRegisters(r.Address, r.Quantity)
-	} else {
-		b, err = c.mb.ReadInputRegisters(r.Address, r.Quantity)
-	}
+	c.tr.ctx, c.tr.deadline, c.tr.req = ctx, transactionDeadline(ctx, c.cfg.Timeout), r
+	regs, err := readRegisters(c.mb, r, c.regs)
 	c.tr.ctx = nil
-	if err == nil && len(b) != 2*int(r.Quantity) {
-		err = fmt.Errorf("%w: %d registers for %d asked", ErrShortResponse, len(b)/2, r.Quantity)
-	}
 	if err != nil {
-		return nil, fmt.Errorf("%v: %w", r, classify(err, r.Table.function()))
+		return nil, err
 	}
-	if cap(c.regs) < int(r.Quantity) {
-		c.regs = make([]uint16, MaxQuantity)
-	}
-	regs := c.regs[:r.Quantity]
-	for i := range regs {
-		regs[i] = binary.BigEndian.Uint16(b[2*i:])
-	}
+	c.regs = regs[:cap(regs)]
 	return regs, nil
 }
 
