@@ -15,6 +15,7 @@ import (
 
 	"glowgate/bus/mqtt"
 	"glowgate/bus/mqtt/mqtttest"
+	"glowgate/internal/realtest"
 )
 
 // needMosquitto skips a test that only Mosquitto can serve (TLS,
@@ -22,8 +23,8 @@ import (
 // GLOWGATE_REQUIRE_REAL=1: then the test fails.
 func needMosquitto(t *testing.T) {
 	t.Helper()
-	if _, err := os.Stat(mqtttest.MosquittoPath); err != nil && os.Getenv("GLOWGATE_REQUIRE_REAL") != "1" {
-		t.Skipf("%s: %v", mqtttest.MosquittoPath, err)
+	if _, err := os.Stat(mqtttest.MosquittoPath); err != nil {
+		realtest.Missing(t, "%s: %v", mqtttest.MosquittoPath, err)
 	}
 }
 

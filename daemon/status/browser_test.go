@@ -15,6 +15,7 @@ import (
 	"github.com/chromedp/chromedp"
 
 	"glowgate/bus/modbus"
+	"glowgate/internal/realtest"
 )
 
 // The browser tests drive Debian's Chromium (package chromium) headless
@@ -31,10 +32,7 @@ func chromiumPath(t *testing.T) string {
 			return p
 		}
 	}
-	if os.Getenv("GLOWGATE_REQUIRE_REAL") == "1" {
-		t.Fatal("no Chromium installed (Debian package chromium) and GLOWGATE_REQUIRE_REAL=1")
-	}
-	t.Skip("no Chromium installed (Debian package chromium); set GLOWGATE_REQUIRE_REAL=1 to fail instead")
+	realtest.Missing(t, "no Chromium installed (Debian package chromium)")
 	return ""
 }
 

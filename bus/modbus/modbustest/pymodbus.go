@@ -3,7 +3,7 @@ package modbustest
 import (
 	"bufio"
 	"bytes"
-	"fmt"
+	"glowgate/internal/realtest"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -24,14 +24,11 @@ func peerScript() string {
 // python is Debian's interpreter, the one python3-pymodbus is installed for.
 const python = "/usr/bin/python3"
 
-// RequireReal skips the test, or fails it when GLOWGATE_REQUIRE_REAL=1.
+// RequireReal skips the test, or fails it when GLOWGATE_REQUIRE_REAL=1
+// (realtest.Missing).
 func RequireReal(t testing.TB, format string, args ...any) {
 	t.Helper()
-	msg := fmt.Sprintf(format, args...)
-	if os.Getenv("GLOWGATE_REQUIRE_REAL") == "1" {
-		t.Fatalf("%s (GLOWGATE_REQUIRE_REAL=1)", msg)
-	}
-	t.Skip(msg)
+	realtest.Missing(t, format, args...)
 }
 
 // StartPymodbus starts testdata/pymodbus_server.py, Debian python3-pymodbus's

@@ -18,6 +18,7 @@ import (
 	"time"
 
 	"glowgate/bus/mqtt"
+	"glowgate/internal/realtest"
 )
 
 // MosquittoPath is where Debian's mosquitto package installs the broker.
@@ -51,7 +52,7 @@ func Start(t testing.TB) *Broker {
 	t.Helper()
 	if _, err := os.Stat(MosquittoPath); err == nil {
 		return StartMosquitto(t)
-	} else if os.Getenv("GLOWGATE_REQUIRE_REAL") == "1" {
+	} else if realtest.Required() {
 		t.Fatalf("mosquitto required (GLOWGATE_REQUIRE_REAL=1): %v", err)
 	}
 	t.Logf("%s not found: using the embedded broker", MosquittoPath)

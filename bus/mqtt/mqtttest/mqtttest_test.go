@@ -14,6 +14,7 @@ import (
 	paho "github.com/eclipse/paho.mqtt.golang"
 
 	"glowgate/bus/mqtt/mqtttest"
+	"glowgate/internal/realtest"
 )
 
 const wait = 10 * time.Second
@@ -166,8 +167,8 @@ func TestRawQoS1Ceiling(t *testing.T) {
 // A TLS broker with certificates from NewCA carries messages for clients
 // that trust the authority.
 func TestStartMosquittoTLS(t *testing.T) {
-	if _, err := os.Stat(mqtttest.MosquittoPath); err != nil && os.Getenv("GLOWGATE_REQUIRE_REAL") != "1" {
-		t.Skipf("%s: %v", mqtttest.MosquittoPath, err)
+	if _, err := os.Stat(mqtttest.MosquittoPath); err != nil {
+		realtest.Missing(t, "%s: %v", mqtttest.MosquittoPath, err)
 	}
 	ca := mqtttest.NewCA(t, "test CA")
 	cert, key := ca.Issue(t, "broker", "127.0.0.1")
