@@ -11,6 +11,7 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+	"syscall"
 	"testing"
 	"time"
 
@@ -20,14 +21,18 @@ import (
 
 var rssFor = flag.Duration("rss-for", time.Minute, "how long BenchmarkRunRSS lets the daemon run before reading its RSS")
 
-// BenchmarkRunEndToEnd runs the glowgate binary as its own process with 50
-// heads on one Modbus TCP endpoint (a loopback responder in the test
-// process) publishing at QoS 1 to a real Mosquitto, and a subscriber in
-// the test process. It reports readings/s delivered and the latency from
-// acquisition to the subscriber, at two poll rates:
+// BenchmarkRunEndToEnd runs the glowgate binary as its own process
+// publishing at QoS 1 to a real Mosquitto, with Modbus TCP responders and
+// a subscriber in the test process. It reports readings/s delivered and
+// the latency from acquisition to the subscriber:
 //
-//	flat-out   every head every 2 ms (25,000 readings/s offered): the ceiling
-//	1000/s     every head every 50 ms: latency at a plant-like load
+//	heads=50/flat-out        50 heads on one endpoint, every head every 2 ms
+//	                         (25,000 readings/s offered): one connection's
+//	                         serial transactions are the ceiling
+//	heads=50/endpoints=50/…  each head its own endpoint, as heads wired one
+//	                         to an address are: the daemon is the ceiling
+//	heads=50/1000-per-s      every head every 50 ms: latency at a plant-like load
+//	heads=64/10Hz            the footprint target's load
 //
 // Latency is the subscriber's clock minus the reading's time. That time is
 // when the poll's request was sent, before the reply, and is truncated to
@@ -37,18 +42,49 @@ var rssFor = flag.Duration("rss-for", time.Minute, "how long BenchmarkRunRSS let
 // same broker in the same run (mqtttest.RawQoS1Ceiling), and the ratio.
 //
 //	go test -run '^$' -bench RunEndToEnd -benchtime 20000x ./cmd/glowgate/
+//
+// With -e2e-profile DIR each case writes the daemon's CPU profile to
+// DIR/<case>.pprof (glowgate run -cpu-profile).
 func BenchmarkRunEndToEnd(b *testing.B) {
 	for _, bc := range []struct {
-		name   string
-		heads  int
-		period time.Duration
+		name      string
+		heads     int
+		endpoints int
+		period    time.Duration
 	}{
-		{"heads=50/flat-out", 50, 2 * time.Millisecond},
-		{"heads=50/1000-per-s", 50, 50 * time.Millisecond},
-		{"heads=64/10Hz", 64, 100 * time.Millisecond},
+		{"heads=50/flat-out", 50, 1, 2 * time.Millisecond},
+		{"heads=50/endpoints=50/flat-out", 50, 50, 2 * time.Millisecond},
+		{"heads=50/1000-per-s", 50, 1, 50 * time.Millisecond},
+		{"heads=64/10Hz", 64, 1, 100 * time.Millisecond},
 	} {
-		b.Run(bc.name, func(b *testing.B) { benchRun(b, bc.heads, bc.period) })
+		b.Run(bc.name, func(b *testing.B) { benchRun(b, bc.heads, bc.endpoints, bc.period) })
 	}
+}
+
+var e2eProfile = flag.String("e2e-profile", "", "directory for the daemon's CPU profile of each BenchmarkRunEndToEnd case")
+
+// spreadConfig is gatewayConfig with n heads spread round-robin over one
+// endpoint per address, each head unit 1 on its endpoint's responder when
+// there are as many addresses as heads.
+func spreadConfig(broker string, addrs []string, n int, period time.Duration) string {
+	var b strings.Builder
+	fmt.Fprintf(&b, "gateway: lifecycle-gw\nunit: degC\nmqtt:\n  brokers: [%s]\n  queue: 200000\nendpoints:\n", broker)
+	for i, a := range addrs {
+		fmt.Fprintf(&b, "  - {name: ep%02d, address: %s, timeout: 200ms}\n", i+1, a)
+	}
+	b.WriteString("heads:\n")
+	for i := range n {
+		fmt.Fprintf(&b, `  - name: head%02d
+    endpoint: ep%02d
+    unit_id: %d
+    period: %v
+    range: {min: 600degC, max: 2000degC}
+    channels:
+      - {name: short, band: {from: 0.875um, to: 0.925um}, signal: {address: 0, type: float32}}
+      - {name: long, band: {from: 1.025um, to: 1.075um}, signal: {address: 2, type: float32}}
+`, i+1, i%len(addrs)+1, i/len(addrs)+1, period)
+	}
+	return b.String()
 }
 
 // procCPU is the CPU time a process has used so far (user + system),
@@ -67,18 +103,31 @@ func procCPU(tb testing.TB, pid int) time.Duration {
 	return time.Duration(utime+stime) * 10 * time.Millisecond
 }
 
-func benchRun(b *testing.B, n int, period time.Duration) {
+func benchRun(b *testing.B, n, endpoints int, period time.Duration) {
 	broker := mqtttest.Start(b)
-	srv := headServer(b, n, 1400)
-	names := make([]string, n)
-	for i := range names {
-		names[i] = fmt.Sprintf("head%02d", i+1)
+	addrs := make([]string, endpoints)
+	for i := range addrs {
+		addrs[i] = headServer(b, (n+endpoints-1)/endpoints, 1400).Addr()
 	}
 	cfgPath := filepath.Join(b.TempDir(), "gw.yaml")
-	text := strings.ReplaceAll(gatewayConfig(broker.URL(), srv.Addr(), names...), "period: 50ms", "period: "+period.String())
-	writeFile(b, cfgPath, strings.Replace(text, "mqtt:\n", "mqtt:\n  queue: 200000\n", 1))
+	writeFile(b, cfgPath, spreadConfig(broker.URL(), addrs, n, period))
 	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
-	p := start(b, io.Discard, "run", "-config", cfgPath, "-log-level", "warn")
+	args := []string{"run", "-config", cfgPath, "-log-level", "warn"}
+	if *e2eProfile != "" {
+		name := strings.NewReplacer("/", "_", "=", "").Replace(strings.TrimPrefix(b.Name(), "BenchmarkRunEndToEnd/"))
+		args = append(args, "-cpu-profile", filepath.Join(*e2eProfile, name+".pprof"))
+	}
+	p := start(b, io.Discard, args...)
+	if *e2eProfile != "" {
+		b.Cleanup(func() { // the profile is written when the run stops
+			p.cmd.Process.Signal(syscall.SIGTERM)
+			select {
+			case <-p.done:
+				p.done <- nil
+			case <-time.After(10 * time.Second):
+			}
+		})
+	}
 	for i := 0; i < 2*n; i++ { // warm up: connected, every head answered
 		if _, ok := sub.Next(10 * time.Second); !ok {
 			b.Fatal("no readings")

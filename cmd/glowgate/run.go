@@ -3,6 +3,8 @@ package main
 import (
 	"context"
 	"fmt"
+	"os"
+	"runtime/pprof"
 	"strings"
 
 	"glowgate/daemon"
@@ -16,10 +18,18 @@ func runCmd(ctx context.Context, e *env, args []string) error {
 	path := fs.String("config", "", "configuration file (YAML)")
 	broker := fs.String("broker", "", "broker URL(s), comma-separated, replacing mqtt.brokers (e.g. tcp://127.0.0.1:1883)")
 	stateDir := fs.String("state-dir", "", "state directory (durable outbox), replacing state_dir")
+	cpuProfile := fs.String("cpu-profile", "", "write a CPU profile of the whole run to `FILE` when it stops (read it with go tool pprof)")
 	var lf logFlags
 	lf.register(fs, "info")
 	if err := parseNoArgs(fs, args); err != nil {
 		return err
+	}
+	if *cpuProfile != "" {
+		stop, err := startCPUProfile(*cpuProfile)
+		if err != nil {
+			return err
+		}
+		defer stop()
 	}
 	log, err := lf.logger(e.stderr)
 	if err != nil {
@@ -52,4 +62,20 @@ func runCmd(ctx context.Context, e *env, args []string) error {
 	err = d.Run(ctx)
 	log.Info("glowgate stopped")
 	return err
+}
+
+// startCPUProfile profiles the process into path until stop is called.
+func startCPUProfile(path string) (stop func(), err error) {
+	f, err := os.Create(path)
+	if err != nil {
+		return nil, fmt.Errorf("-cpu-profile: %w", err)
+	}
+	if err := pprof.StartCPUProfile(f); err != nil {
+		f.Close()
+		return nil, fmt.Errorf("-cpu-profile %s: %w", path, err)
+	}
+	return func() {
+		pprof.StopCPUProfile()
+		f.Close()
+	}, nil
 }
