@@ -246,7 +246,11 @@ func (t *transport) Send(req []byte) ([]byte, error) {
 	if _, err := conn.Write(req); err != nil {
 		return nil, t.ioErr(ctx, "send request", err)
 	}
-	if _, err := io.ReadFull(conn, t.buf[:mbapHeader]); err != nil {
+	// One read takes the whole answer when it has arrived, as it nearly
+	// always has: the header, then the rest if it came apart. Only one
+	// request is outstanding, so bytes past the answer are an error.
+	got, err := io.ReadAtLeast(conn, t.buf[:], mbapHeader)
+	if err != nil {
 		return nil, t.ioErr(ctx, "read response header", err)
 	}
 	n := int(binary.BigEndian.Uint16(t.buf[4:6]))
@@ -254,7 +258,10 @@ func (t *transport) Send(req []byte) ([]byte, error) {
 		return nil, fmt.Errorf("%w: MBAP length field %d outside 2..%d", ErrMalformed, n, maxMBAPField)
 	}
 	end := mbapHeader - 1 + n
-	if _, err := io.ReadFull(conn, t.buf[mbapHeader:end]); err != nil {
+	if got > end {
+		return nil, fmt.Errorf("%w: %d bytes after a response of %d", ErrMalformed, got-end, end)
+	}
+	if _, err := io.ReadFull(conn, t.buf[got:end]); err != nil {
 		return nil, t.ioErr(ctx, "read response body", err)
 	}
 	return t.buf[:end], nil

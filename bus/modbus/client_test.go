@@ -116,24 +116,38 @@ func TestClientRejectsShortResponse(t *testing.T) {
 	}
 }
 
-func TestClientRejectsWrongTransactionID(t *testing.T) {
-	srv := modbustest.NewServer(t)
-	srv.Set(1, modbus.InputRegisters, 0, 7)
-	srv.SetFault(1, modbustest.Fault{Kind: modbustest.WrongTxID, Times: 1})
-	c := modbus.NewTCPClient(srv.Addr(), 5*time.Second)
-	defer c.Close()
-	r := modbus.Request{Unit: 1, Table: modbus.InputRegisters, Address: 0, Quantity: 1}
+// An answer with the wrong transaction id, or with bytes after it while
+// only one request is outstanding, says the stream is out of step: the
+// read fails as malformed, the connection is dropped, and the next read,
+// on a new connection, succeeds.
+func TestClientRejectsOutOfStepAnswers(t *testing.T) {
+	for _, c := range []struct {
+		fault modbustest.FaultKind
+		want  string
+	}{
+		{modbustest.WrongTxID, "transaction id"},
+		{modbustest.Trailing, "2 bytes after a response of 11"},
+	} {
+		t.Run(c.want, func(t *testing.T) {
+			srv := modbustest.NewServer(t)
+			srv.Set(1, modbus.InputRegisters, 0, 7)
+			srv.SetFault(1, modbustest.Fault{Kind: c.fault, Times: 1})
+			cl := modbus.NewTCPClient(srv.Addr(), 5*time.Second)
+			defer cl.Close()
+			r := modbus.Request{Unit: 1, Table: modbus.InputRegisters, Address: 0, Quantity: 1}
 
-	_, err := read(t, c, r, 5*time.Second)
-	if !errors.Is(err, modbus.ErrMalformed) || !strings.Contains(err.Error(), "transaction id") {
-		t.Fatalf("err = %v, want ErrMalformed about the transaction id", err)
-	}
-	got, err := read(t, c, r, 5*time.Second)
-	if err != nil || got[0] != 7 {
-		t.Fatalf("next read = %v, %v", got, err)
-	}
-	if n := srv.Connections(); n != 2 {
-		t.Errorf("connections = %d, want 2 (closed after the error)", n)
+			_, err := read(t, cl, r, 5*time.Second)
+			if !errors.Is(err, modbus.ErrMalformed) || !strings.Contains(err.Error(), c.want) {
+				t.Fatalf("err = %v, want ErrMalformed about %q", err, c.want)
+			}
+			got, err := read(t, cl, r, 5*time.Second)
+			if err != nil || got[0] != 7 {
+				t.Fatalf("next read = %v, %v", got, err)
+			}
+			if n := srv.Connections(); n != 2 {
+				t.Errorf("connections = %d, want 2 (closed after the error)", n)
+			}
+		})
 	}
 }
 

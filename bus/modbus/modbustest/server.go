@@ -40,6 +40,7 @@ const (
 	Short                      // answer one register fewer than asked, with a consistent byte count
 	WrongTxID                  // answer correctly but with the transaction id plus one
 	Drop                       // close the connection instead of answering
+	Trailing                   // answer correctly, with two stray bytes after the answer in the same write
 )
 
 // Fault makes the server misbehave for requests to one unit.
@@ -316,6 +317,9 @@ func (s *Server) handle(c net.Conn) {
 		binary.BigEndian.PutUint16(out[4:6], uint16(1+len(resp)))
 		out[6] = unitID
 		copy(out[mbapHeader:], resp)
+		if f.Kind == Trailing {
+			out = append(out, 0xde, 0xad)
+		}
 		_, err := c.Write(out)
 		s.handled(f)
 		if err != nil {
