@@ -164,12 +164,12 @@ func TestLineKeepsEachPollsPeriod(t *testing.T) {
 		if got, want := fr.times(1), ms(0, 100, 200, 300, 400, 500, 600, 700, 800, 900, 1000); !slices.Equal(got, want) {
 			t.Errorf("poll a read at %v, want %v", got, want)
 		}
-		// Poll b is the second of two: its phase is half its period.
-		if got, want := fr.times(2), ms(125, 375, 625, 875); !slices.Equal(got, want) {
+		// Both start together, at Run's start.
+		if got, want := fr.times(2), ms(0, 250, 500, 750, 1000); !slices.Equal(got, want) {
 			t.Errorf("poll b read at %v, want %v", got, want)
 		}
-		if len(results) != 15 {
-			t.Fatalf("%d results delivered, want 15", len(results))
+		if len(results) != 16 {
+			t.Fatalf("%d results delivered, want 16", len(results))
 		}
 		if r := results[0]; r.Poll != 0 || r.Err != nil || len(r.Blocks) != 1 || len(r.Blocks[0]) != 1 {
 			t.Errorf("first result = %+v", r)
@@ -550,8 +550,11 @@ func TestLinePollReadsBlocksBackToBack(t *testing.T) {
 			!slices.Equal(a2, ms(0, 100)) || !slices.Equal(a3, ms(3, 103)) {
 			t.Errorf("poll a read at %v, %v, %v", a1, a2, a3)
 		}
-		if a5 := fr.times(5); !slices.Equal(a5, ms(150)) {
-			t.Errorf("block 5 read at %v, want only after block 4 first succeeded (150 ms)", a5)
+		// Poll b falls due with poll a and follows it: its block 4 fails at
+		// 3 ms, so block 5 is first read at 103 ms, after poll a's second
+		// reading and block 4's first success.
+		if a5 := fr.times(5); !slices.Equal(a5, ms(103)) {
+			t.Errorf("block 5 read at %v, want only after block 4 first succeeded (103 ms)", a5)
 		}
 		s := l.Stats()
 		if p := s.Polls[0]; p.Polls != 2 || p.Transactions != 6 || p.Failures != 0 {
@@ -572,7 +575,7 @@ func TestLineRetriesFrameErrorOnce(t *testing.T) {
 		l := modbus.NewLine(modbus.LineConfig{Name: "l"}, fr,
 			[]modbus.Poll{poll("once", 1, time.Second), poll("twice", 2, time.Second), poll("other", 3, time.Second)},
 			func(r modbus.Result) { kinds[r.Poll] = append(kinds[r.Poll], modbus.Kind(r.Err)) })
-		runFor(t, l, 700*time.Millisecond) // phases 0, 333 and 667 ms
+		runFor(t, l, 700*time.Millisecond) // each read once, at 0
 		if !slices.Equal(kinds[0], []modbus.ErrorKind{modbus.KindNone}) ||
 			!slices.Equal(kinds[1], []modbus.ErrorKind{modbus.KindFrame}) ||
 			!slices.Equal(kinds[2], []modbus.ErrorKind{modbus.KindConnection}) {
@@ -628,7 +631,9 @@ func TestLineTransactionTimes(t *testing.T) {
 				t.Errorf("a poll took %v", d)
 			}
 		}
-		if n3 < 8 || n30 < 8 || n300 != 1 {
+		// c times out at 0 (after a and b) and again one backoff (its
+		// period) later.
+		if n3 < 7 || n30 < 7 || n300 != 2 {
 			t.Fatalf("polls took %v", took)
 		}
 		if s.Times.Count != uint64(len(took)) || s.Times.Sum != sum || s.Times.Mean() != sum/time.Duration(len(took)) {
