@@ -454,10 +454,10 @@ func (d *Daemon) poll(ctx context.Context) error {
 			} else {
 				r = h.polled(res.Time, res.Blocks, scratch)
 			}
-			d.publish(topicOf[res.Poll], pub, r)
+			payload := d.publish(topicOf[res.Poll], pub, r)
 			d.evaluate(h, &r)
 			if srv := d.status; srv != nil {
-				srv.Reading(&r)
+				srv.ReadingJSON(&r, payload)
 			}
 		}
 		line := modbus.NewLine(modbus.LineConfig{
@@ -482,15 +482,17 @@ func (d *Daemon) poll(ctx context.Context) error {
 }
 
 // publish numbers a reading, remembers it as the head's latest and hands
-// it to the publisher without waiting.
+// it to the publisher without waiting. It returns the payload queued,
+// which the caller may read but not change.
 //
 // Numbering and queueing happen under one lock, so that the queue holds
 // the readings of all lines in sequence order.
-func (d *Daemon) publish(topic string, pub *mqtt.Publisher, r mqtt.Reading) {
+func (d *Daemon) publish(topic string, pub *mqtt.Publisher, r mqtt.Reading) (payload []byte) {
 	if ob := d.outbox; ob != nil {
 		_, err := ob.Append(mqtt.KindReading, topic, false, func(seq uint64) []byte {
 			r.Seq = seq
-			return r.AppendJSON(make([]byte, 0, 640))
+			payload = r.AppendJSON(make([]byte, 0, 640))
+			return payload
 		})
 		if err != nil {
 			d.log.Error("outbox append", "head", r.Head, "err", err)
@@ -498,12 +500,14 @@ func (d *Daemon) publish(topic string, pub *mqtt.Publisher, r mqtt.Reading) {
 	} else {
 		d.seqMu.Lock()
 		r.Seq = d.seq.Add(1)
-		pub.Publish(mqtt.Message{Topic: topic, Payload: r.AppendJSON(make([]byte, 0, 640))})
+		payload = r.AppendJSON(make([]byte, 0, 640))
+		pub.Publish(mqtt.Message{Topic: topic, Payload: payload})
 		d.seqMu.Unlock()
 	}
 	d.mu.Lock()
 	d.latest[r.Head] = r
 	d.mu.Unlock()
+	return payload
 }
 
 // runAlarmTicker drives the alarms' time-driven transitions once a

@@ -6,6 +6,7 @@ import (
 	"math"
 	"slices"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"glowgate/bus/modbus"
@@ -82,6 +83,39 @@ type Health struct {
 // convert.GlowColor gives the chromaticity at any temperature.
 const visibleGlowK = 798
 
+// glowTableMaxK is the hottest temperature whose glow colour glowTable
+// keeps; hotter ones are computed each time.
+const glowTableMaxK = 4000
+
+// glowTable keeps the glow colour of each whole kelvin from visibleGlowK to
+// glowTableMaxK, computed on first use: convert.GlowColor takes about 5 µs,
+// and the swatch, 8 bits a channel, moves by at most one step within half
+// a kelvin (TestGlowTable). Safe for concurrent use.
+type glowTable struct {
+	rgb [glowTableMaxK - visibleGlowK + 1]atomic.Uint32 // 1<<24 | r<<16 | g<<8 | b once computed
+}
+
+// color is the swatch of tK rounded to the kelvin, and false below
+// visibleGlowK or for NaN.
+func (g *glowTable) color(tK float64) ([3]uint8, bool) {
+	if !(tK >= visibleGlowK) {
+		return [3]uint8{}, false
+	}
+	k := math.Round(tK)
+	if k > glowTableMaxK {
+		_, _, rgb := convert.GlowColor(tK)
+		return rgb, true
+	}
+	e := &g.rgb[int(k)-visibleGlowK]
+	v := e.Load()
+	if v == 0 {
+		_, _, rgb := convert.GlowColor(k)
+		v = 1<<24 | uint32(rgb[0])<<16 | uint32(rgb[1])<<8 | uint32(rgb[2])
+		e.Store(v)
+	}
+	return [3]uint8{uint8(v >> 16), uint8(v >> 8), uint8(v)}, true
+}
+
 // maxHeads bounds the heads a Server keeps state for: readings of further
 // heads (a feeding bug, not a configuration) are dropped.
 const maxHeads = 1024
@@ -120,13 +154,27 @@ func (s *Server) Reading(r *mqtt.Reading) {
 	if r == nil || r.Head == "" {
 		return
 	}
+	s.ReadingJSON(r, nil)
+}
+
+// ReadingJSON is Reading for a reading already encoded: payload is
+// r.AppendJSON's output (the message published, which may carry r's
+// sequence number), copied into the live event instead of encoding r
+// again. A nil payload encodes r.
+func (s *Server) ReadingJSON(r *mqtt.Reading, payload []byte) {
+	if r == nil || r.Head == "" {
+		return
+	}
 	ev := make([]byte, 0, 512+96*len(r.Channels))
 	ev = append(ev, `{"reading":`...)
-	ev = r.AppendJSON(ev)
+	if payload != nil {
+		ev = append(ev, payload...)
+	} else {
+		ev = r.AppendJSON(ev)
+	}
 	ev = append(ev, `,"glow":`...)
 	tempC := celsius(r.Temperature, r.Unit)
-	if tempC+273.15 >= visibleGlowK {
-		_, _, rgb := convert.GlowColor(tempC + 273.15)
+	if rgb, ok := s.glow.color(tempC + 273.15); ok {
 		ev = append(ev, '"', '#', hexDigit(rgb[0]>>4), hexDigit(rgb[0]&15), hexDigit(rgb[1]>>4), hexDigit(rgb[1]&15), hexDigit(rgb[2]>>4), hexDigit(rgb[2]&15), '"')
 	} else {
 		ev = append(ev, "null"...)

@@ -68,6 +68,7 @@ const (
 
 // Server is the status HTTP server. Create it with New.
 type Server struct {
+	glow     glowTable
 	o        Options
 	log      *slog.Logger
 	now      func() time.Time
