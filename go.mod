@@ -13,6 +13,7 @@ require (
 	github.com/simonvetter/modbus v1.6.4
 	go.bug.st/serial v1.8.0
 	go.etcd.io/bbolt v1.4.3
+	golang.org/x/net v0.44.0
 	golang.org/x/sync v0.25.0
 	gonum.org/v1/gonum v0.17.0
 	gonum.org/v1/plot v0.17.0
@@ -37,7 +38,6 @@ require (
 	github.com/rs/xid v1.4.0 // indirect
 	go.yaml.in/yaml/v2 v2.4.2 // indirect
 	golang.org/x/image v0.30.0 // indirect
-	golang.org/x/net v0.44.0 // indirect
 	golang.org/x/sys v0.43.0 // indirect
 	golang.org/x/text v0.29.0 // indirect
 	google.golang.org/protobuf v1.36.8 // indirect

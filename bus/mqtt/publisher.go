@@ -616,6 +616,7 @@ func (p *Publisher) connect(broker string, timeout time.Duration, fail *limiter)
 		SetWriteTimeout(p.o.ConnectTimeout).
 		SetConnectTimeout(timeout).
 		SetDialer(&net.Dialer{Timeout: timeout}).
+		SetCustomOpenConnectionFn(openConnection).
 		SetConnectionLostHandler(func(_ paho.Client, err error) {
 			select {
 			case l.lost <- err:
