@@ -100,12 +100,16 @@ type OutboxStats struct {
 //
 // Append returns at once; a committer goroutine writes what was appended
 // in group commits, at most CommitInterval apart, each ending in an fsync.
-// Only committed entries are handed to the Publisher, so everything a
-// broker ever acknowledged had reached the disk first, and an entry is
+// Readings are handed to the Publisher once committed, so every reading a
+// broker acknowledged had reached the disk first. Events and states (alarm
+// annunciations) are also handed to it at once, beside their durable copy,
+// so that an alarm does not wait for an fsync; their sequence numbers lie
+// within a reservation that an earlier commit made durable. An entry is
 // deleted only after its PUBACK: a crash may make a broker receive an
 // entry twice, never lose one that was committed. Entries appended but not
-// yet committed when the process dies are lost, and their sequence numbers
-// are assigned again by the next run (no one saw them).
+// yet committed when the process dies are lost; the next run does not use
+// their numbers again (some may have been seen) and says so with a gap
+// event of reason "unclean_stop".
 type Outbox struct {
 	path string
 	db   *bolt.DB
@@ -115,6 +119,7 @@ type Outbox struct {
 	work   chan struct{} // something to commit
 	kick   chan struct{} // commit now: buffer full, Sync or Close
 	notify chan struct{} // a commit made entries visible (to the publisher)
+	early  chan entry    // events and states to send before their commit
 	stop   chan struct{} // Close was called
 	done   chan struct{} // the committer has exited
 
@@ -127,6 +132,7 @@ type Outbox struct {
 	cond      *sync.Cond // signalled after each commit attempt
 	closed    bool
 	last      uint64  // last sequence number assigned
+	reserved  uint64  // durable: numbers up to this may be sent before their commit
 	pending   []entry // appended, waiting for their commit, in seq order
 	spare     []entry // the buffer of the last commit, for reuse
 	pendBytes int
@@ -181,10 +187,12 @@ func OpenOutbox(dir string, o OutboxOptions) (*Outbox, error) {
 		work:      make(chan struct{}, 1),
 		kick:      make(chan struct{}, 1),
 		notify:    make(chan struct{}, 1),
+		early:     make(chan entry, earlyEntries),
 		stop:      make(chan struct{}),
 		done:      make(chan struct{}),
-		last:      st.lastSeq,
-		watermark: st.lastSeq,
+		last:      st.reserved,
+		reserved:  st.reserved,
+		watermark: st.reserved,
 		stored:    st.stored,
 		claimed:   make(map[uint64]bool),
 		dropLog:   limiter{period: 10 * time.Second},
@@ -192,6 +200,17 @@ func OpenOutbox(dir string, o OutboxOptions) (*Outbox, error) {
 		errLog:    limiter{period: time.Minute},
 	}
 	b.cond = sync.NewCond(&b.mu)
+	if st.reserved > st.lastSeq {
+		// The last run stopped without its final commit (killed, or the
+		// machine lost power): numbers after the last committed one may
+		// have reached subscribers in events sent before their commit.
+		// They are not used again, and a gap event says so.
+		from, to := st.lastSeq+1, st.reserved
+		lg.Warn("outbox: the last run did not stop cleanly; entries appended after its last commit are lost",
+			"path", path, "from_seq", from, "to_seq", to)
+		b.pending = append(b.pending, b.gapEntry(from, to, int(to-from+1), "unclean_stop"))
+		b.pendBytes = b.pending[0].encodedLen()
+	}
 	go b.committer()
 	lg.Info("outbox opened", "path", path, "entries", st.stored, "last_seq", st.lastSeq)
 	return b, nil
@@ -244,9 +263,15 @@ func (b *Outbox) Append(kind EntryKind, topic string, retain bool, payload func(
 	if err := checkPublishTopic(topic); err != nil {
 		return 0, fmt.Errorf("outbox append: %w", err)
 	}
-	seq, urgent, err := b.push(kind, topic, retain, payload)
+	e, urgent, early, err := b.push(kind, topic, retain, payload)
 	if err != nil {
 		return 0, err
+	}
+	if early {
+		select {
+		case b.early <- e:
+		default: // the publisher is away or behind: the entry goes when committed
+		}
 	}
 	signal(b.work)
 	// Events and states (alarm annunciations) are committed at once
@@ -255,33 +280,35 @@ func (b *Outbox) Append(kind EntryKind, topic string, retain bool, payload func(
 	if urgent || kind != KindReading {
 		signal(b.kick)
 	}
-	return seq, nil
+	return e.seq, nil
 }
 
-func (b *Outbox) push(kind EntryKind, topic string, retain bool, payload func(uint64) []byte) (uint64, bool, error) {
+// push numbers and queues one entry. early says that it may be sent before
+// its commit: an event or state whose number is reserved.
+func (b *Outbox) push(kind EntryKind, topic string, retain bool, payload func(uint64) []byte) (e entry, urgent, early bool, err error) {
 	b.mu.Lock()
 	defer b.mu.Unlock()
 	for !b.closed && (len(b.pending) >= maxPendingEntries || b.pendBytes >= maxPendingBytes) {
 		if b.err != nil {
-			return 0, false, fmt.Errorf("outbox append: commit buffer full and the last commit failed: %w", b.err)
+			return entry{}, false, false, fmt.Errorf("outbox append: commit buffer full and the last commit failed: %w", b.err)
 		}
 		signal(b.kick)
 		b.cond.Wait()
 	}
 	if b.closed {
-		return 0, false, ErrOutboxClosed
+		return entry{}, false, false, ErrOutboxClosed
 	}
 	seq := b.last + 1
 	p := payload(seq)
 	if len(p) > maxPacketRemaining-4-len(topic) {
-		return 0, false, fmt.Errorf("outbox append: payload of %d bytes too large for one MQTT packet", len(p))
+		return entry{}, false, false, fmt.Errorf("outbox append: payload of %d bytes too large for one MQTT packet", len(p))
 	}
 	b.last = seq
-	e := entry{seq: seq, kind: kind, retain: retain, at: b.o.Now().UnixNano(), topic: topic, payload: p}
+	e = entry{seq: seq, kind: kind, retain: retain, at: b.o.Now().UnixNano(), topic: topic, payload: p}
 	b.pending = append(b.pending, e)
 	b.pendBytes += e.encodedLen()
-	urgent := len(b.pending) >= maxPendingEntries/2 || b.pendBytes >= maxPendingBytes/2
-	return seq, urgent, nil
+	urgent = len(b.pending) >= maxPendingEntries/2 || b.pendBytes >= maxPendingBytes/2
+	return e, urgent, kind != KindReading && seq <= b.reserved, nil
 }
 
 // Sync commits at once what has been appended (and acknowledged) so far
@@ -394,7 +421,7 @@ func (b *Outbox) committer() {
 	for {
 		select {
 		case <-b.stop:
-			b.commit()
+			b.commit(true)
 			return
 		case <-b.kick:
 		case <-b.work:
@@ -406,24 +433,31 @@ func (b *Outbox) committer() {
 					timer.Stop()
 				case <-b.stop:
 					timer.Stop()
-					b.commit()
+					b.commit(true)
 					return
 				}
 			}
 		}
 		last = time.Now()
-		if !b.commit() {
+		if !b.commit(false) {
 			signal(b.work) // try again after an interval
 		}
 	}
 }
 
+// reserveAhead is how many sequence numbers past the last committed one
+// each commit reserves for events and states sent before their commit
+// (see keyReservedSeq); at most this many go unused after an unclean stop.
+const reserveAhead = 4096
+
 // commit writes the pending entries, deletes the acknowledged ones and
-// drops the oldest readings beyond MaxEntries, in one transaction. It
+// drops the oldest readings beyond MaxEntries, in one transaction, which
+// also keeps the reservation of sequence numbers ahead of the last one:
+// the final commit, when the outbox closes, gives back what is unused. It
 // reports whether it succeeded (or had nothing to do).
-func (b *Outbox) commit() bool {
+func (b *Outbox) commit(final bool) bool {
 	b.mu.Lock()
-	if len(b.pending) == 0 && len(b.acks) == 0 && len(b.discards) == 0 {
+	if len(b.pending) == 0 && len(b.acks) == 0 && len(b.discards) == 0 && (!final || b.reserved == b.last) {
 		b.mu.Unlock()
 		return true
 	}
@@ -437,7 +471,7 @@ func (b *Outbox) commit() bool {
 		inserted, deleted, discarded int
 		dropped                      []uint64
 		gap                          entry
-		lastSeq                      uint64
+		lastSeq, reserved            uint64
 		readsHeld                    bool
 	)
 	// bbolt keeps the value slices until the transaction ends: each value
@@ -506,12 +540,22 @@ func (b *Outbox) commit() bool {
 				}
 			}
 			if len(dropped) > 0 {
-				gap = b.gapEntry(dropped)
+				gap = b.gapEntry(dropped[0], dropped[len(dropped)-1], len(dropped), "dropped")
 				if err := kept.Put(seqKey(gap.seq), gap.encode(nil)); err != nil {
 					return fmt.Errorf("put gap event %d: %w", gap.seq, err)
 				}
 				lastSeq = max(lastSeq, gap.seq)
 			}
+		}
+		reserved = b.reserved
+		switch {
+		case final:
+			reserved = lastSeq
+		case lastSeq+reserveAhead/2 > reserved:
+			reserved = lastSeq + reserveAhead
+		}
+		if err := meta.Put(keyReservedSeq, seqKey(reserved)); err != nil {
+			return err
 		}
 		return meta.Put(keyLastSeq, seqKey(lastSeq))
 	})
@@ -545,6 +589,7 @@ func (b *Outbox) commit() bool {
 		b.log.Info("outbox commits recovered", "failures", b.errLog.reset())
 		b.err = nil
 	}
+	b.reserved = reserved
 	b.stored += inserted - deleted - discarded - len(dropped)
 	if gap.seq != 0 {
 		b.stored++
@@ -606,16 +651,18 @@ func (b *Outbox) chooseDrops(readings *bolt.Bucket, n int) []uint64 {
 	return seqs
 }
 
-// gapEntry builds the gap event naming dropped (ascending), with the next
-// sequence number.
+// gapEntry builds a gap event, with the next sequence number:
 //
-//	{"type":"gap","gateway":G,"seq":S,"from":FIRST,"to":LAST,"count":N,"time":T}
+//	{"type":"gap","gateway":G,"seq":S,"from":FROM,"to":TO,"count":N,"reason":R,"time":T}
 //
-// from and to are the first and last sequence numbers dropped; count is
-// how many were dropped between them (fewer than to-from+1 when events,
-// states or readings in flight lay between). T is RFC 3339 UTC with
+// from and to are the first and last sequence numbers lost; count is how
+// many of the numbers between them were lost (fewer than to-from+1 when
+// events, states or readings in flight lay between). reason is "dropped"
+// (the outbox was full) or "unclean_stop" (numbers after the last commit
+// of a run that did not stop cleanly: entries appended but not committed,
+// some of which may have been delivered). T is RFC 3339 UTC with
 // milliseconds.
-func (b *Outbox) gapEntry(dropped []uint64) entry {
+func (b *Outbox) gapEntry(from, to uint64, count int, reason string) entry {
 	now := b.o.Now()
 	p := append([]byte(nil), `{"type":"gap","gateway":`...)
 	p = appendString(p, b.o.Gateway)
@@ -626,11 +673,13 @@ func (b *Outbox) gapEntry(dropped []uint64) entry {
 	p = append(p, `,"seq":`...)
 	p = strconv.AppendUint(p, seq, 10)
 	p = append(p, `,"from":`...)
-	p = strconv.AppendUint(p, dropped[0], 10)
+	p = strconv.AppendUint(p, from, 10)
 	p = append(p, `,"to":`...)
-	p = strconv.AppendUint(p, dropped[len(dropped)-1], 10)
+	p = strconv.AppendUint(p, to, 10)
 	p = append(p, `,"count":`...)
-	p = strconv.AppendInt(p, int64(len(dropped)), 10)
+	p = strconv.AppendInt(p, int64(count), 10)
+	p = append(p, `,"reason":`...)
+	p = appendString(p, reason)
 	p = append(p, `,"time":`...)
 	p = appendTime(p, now)
 	p = append(p, '}')
@@ -759,6 +808,33 @@ func (b *Outbox) release() {
 			delete(b.claimed, seq)
 		}
 	}
+}
+
+// earlyEntries is how many events and states wait to be sent before their
+// commit; more go when committed.
+const earlyEntries = 256
+
+// dropEarly forgets the entries waiting to be sent before their commit.
+func (b *Outbox) dropEarly() {
+	for {
+		select {
+		case <-b.early:
+		default:
+			return
+		}
+	}
+}
+
+// claimEarly claims seq for sending before its commit, unless it is
+// claimed already.
+func (b *Outbox) claimEarly(seq uint64) bool {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	if _, busy := b.claimed[seq]; busy || b.closed {
+		return false
+	}
+	b.claimed[seq] = false
+	return true
 }
 
 // committedSignal is signalled after each commit.

@@ -30,6 +30,11 @@ var (
 	bucketKept     = []byte("kept")
 	keyFormat      = []byte("format")
 	keyLastSeq     = []byte("last-seq")
+	// keyReservedSeq: sequence numbers up to this may have been sent
+	// before their commit (events and states, Outbox.Append); a run that
+	// stops cleanly sets it back to the last one. Absent in files of
+	// earlier versions: read as the last sequence number.
+	keyReservedSeq = []byte("reserved-seq")
 )
 
 // outboxFormat names the layout above; a file holding another value is not
@@ -126,8 +131,9 @@ func bucketFor(tx *bolt.Tx, k EntryKind) *bolt.Bucket {
 
 // fileState is what opening learns from the file.
 type fileState struct {
-	lastSeq uint64
-	stored  int
+	lastSeq  uint64
+	reserved uint64 // ≥ lastSeq
+	stored   int
 }
 
 // checkFile opens path read-only and walks every entry, so that a damaged
@@ -186,6 +192,13 @@ func checkFile(path string) (st fileState, err error) {
 			return fmt.Errorf("%s: damaged outbox file: last sequence number of %d bytes", path, len(ls))
 		}
 		st.lastSeq = binary.BigEndian.Uint64(ls)
+		st.reserved = st.lastSeq
+		if rs := meta.Get(keyReservedSeq); rs != nil {
+			if len(rs) != 8 || binary.BigEndian.Uint64(rs) < st.lastSeq {
+				return fmt.Errorf("%s: damaged outbox file: reserved sequence number %x below the last, %d", path, rs, st.lastSeq)
+			}
+			st.reserved = binary.BigEndian.Uint64(rs)
+		}
 		for _, name := range [][]byte{bucketReadings, bucketKept} {
 			b := tx.Bucket(name)
 			if b == nil {

@@ -493,3 +493,69 @@ func TestOutboxBacklogDoesNotDelayLive(t *testing.T) {
 		t.Errorf("outbox after a partial drain: %+v", st)
 	}
 }
+
+// An alarm event or state does not wait for its commit: it is sent at
+// once beside its durable copy (its number was reserved by an earlier
+// commit), while a reading waits for its commit. Each arrives once, and
+// both are deleted on their PUBACKs once committed.
+func TestOutboxEventsGoBeforeTheirCommit(t *testing.T) {
+	broker := mqtttest.Start(t)
+	sub := mqtttest.Subscribe(t, broker.URL(), "glowgate/gw1/#")
+	c := collectSeqs(t, sub)
+	ob := openOutbox(t, t.TempDir())
+	o := testOptions(t, broker.URL())
+	o.Outbox = ob
+	p := newPublisher(t, o)
+	stop := run(t, p)
+	defer stop()
+	appendOne := func(kind mqtt.EntryKind, topic string) uint64 {
+		t.Helper()
+		seq, err := ob.Append(kind, topic, kind == mqtt.KindState, func(seq uint64) []byte {
+			return fmt.Appendf(nil, `{"seq":%d}`, seq)
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return seq
+	}
+	first := appendOne(mqtt.KindReading, tp.Reading("h1")) // its commit reserves numbers ahead
+	c.waitFor(t, "the first reading", func(m map[uint64]arrival) bool { _, ok := m[first]; return ok })
+
+	release := mqtt.HoldCommits(t, ob)
+	reading := appendOne(mqtt.KindReading, tp.Reading("h1"))
+	event := appendOne(mqtt.KindEvent, tp.Events())
+	state := appendOne(mqtt.KindState, tp.Alarm("h1", "high"))
+	c.waitFor(t, "the event and the state while commits are held", func(m map[uint64]arrival) bool {
+		_, e := m[event]
+		_, s := m[state]
+		return e && s
+	})
+	c.mu.Lock()
+	_, early := c.first[reading]
+	c.mu.Unlock()
+	if early {
+		t.Errorf("reading %d arrived before its commit", reading)
+	}
+	release()
+	c.waitAll(t, state)
+	waitDepth(t, ob, 0)
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	if c.copies != 0 {
+		t.Errorf("%d messages arrived more than once", c.copies)
+	}
+}
+
+// waitDepth waits until ob holds n entries (acknowledged ones deleted).
+func waitDepth(t *testing.T, ob *mqtt.Outbox, n int) {
+	t.Helper()
+	deadline := time.Now().Add(wait)
+	for ob.Stats().Depth != n {
+		if time.Now().After(deadline) {
+			t.Fatalf("outbox depth %d, want %d within %v", ob.Stats().Depth, n, wait)
+		}
+		if err := ob.Sync(); err != nil {
+			t.Fatal(err)
+		}
+	}
+}

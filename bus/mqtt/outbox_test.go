@@ -199,6 +199,66 @@ func TestOutboxResume(t *testing.T) {
 	}
 }
 
+// Events and states may be sent before their commit, so their sequence
+// numbers are reserved ahead in the file. A run that stops cleanly gives
+// the unused ones back; one that does not (the file as a crash leaves it,
+// taken here as a copy while the outbox runs) leaves them unused for
+// good: the next run numbers after them and says so with a gap event.
+func TestOutboxReservedNumbersAfterUncleanStop(t *testing.T) {
+	dir, crashed := t.TempDir(), t.TempDir()
+	b := openTest(t, dir, OutboxOptions{GapTopic: testEvents, Gateway: testGateway,
+		Now: func() time.Time { return time.Date(2026, 12, 2, 1, 0, 0, 0, time.UTC) }})
+	appendN(t, b, KindReading, testReading, 3)
+	appendN(t, b, KindEvent, testEvents, 1)
+	if err := b.Sync(); err != nil {
+		t.Fatal(err)
+	}
+	b.mu.Lock()
+	reserved := b.reserved
+	b.mu.Unlock()
+	if reserved != 4+reserveAhead {
+		t.Fatalf("reserved through %d after a commit of 4, want %d", reserved, 4+reserveAhead)
+	}
+	image, err := os.ReadFile(filepath.Join(dir, OutboxFile))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(filepath.Join(crashed, OutboxFile), image, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	if err := b.Close(); err != nil {
+		t.Fatal(err)
+	}
+
+	// Clean stop: numbering goes on from 5.
+	b = openTest(t, dir, OutboxOptions{})
+	if seqs := appendN(t, b, KindReading, testReading, 1); seqs[0] != 5 {
+		t.Errorf("first number after a clean stop: %d, want 5", seqs[0])
+	}
+
+	// Unclean stop: 5 … 4+reserveAhead are never used; the gap event
+	// takes the next number and names them.
+	var logs logRecords
+	c := openTest(t, crashed, OutboxOptions{GapTopic: testEvents, Gateway: testGateway, Logger: slog.New(&logs),
+		Now: func() time.Time { return time.Date(2026, 12, 2, 1, 0, 0, 0, time.UTC) }})
+	if seqs := appendN(t, c, KindReading, testReading, 1); seqs[0] != reserved+2 {
+		t.Errorf("first number after an unclean stop: %d, want %d", seqs[0], reserved+2)
+	}
+	if err := c.Sync(); err != nil {
+		t.Fatal(err)
+	}
+	es := contents(t, c)
+	gap := es[len(es)-2]
+	want := fmt.Sprintf(`{"type":"gap","gateway":"gw1","seq":%d,"from":5,"to":%d,"count":%d,"reason":"unclean_stop","time":"2026-12-02T01:00:00.000Z"}`,
+		reserved+1, reserved, reserveAhead)
+	if gap.kind != KindEvent || gap.topic != testEvents || string(gap.payload) != want {
+		t.Errorf("gap event: kind %v topic %s\n got %s\nwant %s", gap.kind, gap.topic, gap.payload, want)
+	}
+	if w := logs.find(slog.LevelWarn, "did not stop cleanly"); len(w) != 1 {
+		t.Errorf("warnings %q, want one about the unclean stop", w)
+	}
+}
+
 // Many appends in a burst share few commits: at most one per
 // CommitInterval of the burst, plus the first and the one of Sync.
 func TestOutboxGroupCommit(t *testing.T) {
@@ -252,7 +312,7 @@ func TestOutboxDropOldestReadings(t *testing.T) {
 		t.Fatalf("after the first overflow: %v, want %v", got, want)
 	}
 	gap := es[len(es)-1]
-	wantGap := `{"type":"gap","gateway":"gw1","seq":16,"from":1,"to":7,"count":6,"time":"2026-12-01T22:00:00.123Z"}`
+	wantGap := `{"type":"gap","gateway":"gw1","seq":16,"from":1,"to":7,"count":6,"reason":"dropped","time":"2026-12-01T22:00:00.123Z"}`
 	if gap.kind != KindEvent || gap.topic != testEvents || gap.retain || string(gap.payload) != wantGap {
 		t.Fatalf("gap event: kind %v topic %s retain %v\n got %s\nwant %s", gap.kind, gap.topic, gap.retain, gap.payload, wantGap)
 	}

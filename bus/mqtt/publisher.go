@@ -648,6 +648,7 @@ func (p *Publisher) connect(broker string, timeout time.Duration, fail *limiter)
 	l.c = c
 	if ob := p.o.Outbox; ob != nil {
 		l.boundary = ob.lastAssigned()
+		ob.dropEarly() // appended before the link: its backlog reads them
 		l.liveNext, l.backNext = l.boundary+1, 1
 	}
 	p.writers.Add(1)
@@ -735,10 +736,12 @@ func (p *Publisher) serve(ctx context.Context, l *link, flush bool) error {
 	for {
 		p.fill(l, flush)
 		var wake, committed <-chan struct{}
+		var early <-chan entry
 		if l.n < p.o.Window {
 			wake = p.wake
 			if p.o.Outbox != nil && !flush {
 				committed = p.o.Outbox.committedSignal()
+				early = p.o.Outbox.early
 			}
 		}
 		var headDone, newHead = (<-chan struct{})(nil), l.toks
@@ -770,6 +773,8 @@ func (p *Publisher) serve(ctx context.Context, l *link, flush bool) error {
 			p.completed(h)
 		case <-wake:
 		case <-committed:
+		case e := <-early:
+			p.sendEarly(l, &e)
 		case <-ctx.Done():
 			return ctx.Err()
 		case err := <-l.lost:
@@ -846,6 +851,20 @@ func (p *Publisher) fill(l *link, flush bool) {
 	if l.backNext > l.boundary {
 		l.backDone = true
 		p.log.Info("mqtt outbox backlog handed out", "broker", l.broker, "entries", l.replayed, "through_seq", l.boundary)
+	}
+}
+
+// sendEarly hands out an event or state before its commit, unless this
+// link's reads have passed it (they sent it, or skipped it as claimed) or
+// it is claimed already. Either way it is sent once on this link, and its
+// PUBACK acknowledges it like any other.
+func (p *Publisher) sendEarly(l *link, e *entry) {
+	passed := e.seq < l.liveNext
+	if e.seq <= l.boundary {
+		passed = e.seq < l.backNext
+	}
+	if !passed && p.o.Outbox.claimEarly(e.seq) {
+		p.handOut(l, e, fromLive)
 	}
 }
 

@@ -408,7 +408,8 @@ func TestReadmeConfiguration(t *testing.T) {
 // outbox while the broker is out of reach, is killed outright, and is
 // started again on the same state directory; once the broker is back, the
 // subscriber holds every sequence number from the first it saw to the
-// last, none missing (duplicates allowed: QoS 1).
+// last (duplicates allowed: QoS 1), except those a gap event names: the
+// numbers the killed run had reserved and not committed ("unclean_stop").
 func TestSIGKILLDuringOutage(t *testing.T) {
 	broker := mqtttest.Start(t)
 	proxy := mqtttest.NewProxy(t, broker.Addr())
@@ -417,22 +418,37 @@ func TestSIGKILLDuringOutage(t *testing.T) {
 	cfgPath := filepath.Join(dir, "gw.yaml")
 	writeFile(t, cfgPath, gatewayConfig(proxy.URL(), srv.Addr(), "first", "second"))
 	state := filepath.Join(dir, "state")
-	sub := mqtttest.Subscribe(t, broker.URL(), "glowgate/lifecycle-gw/+/reading")
+	sub := mqtttest.Subscribe(t, broker.URL(), "glowgate/lifecycle-gw/#")
 
 	seqs := map[uint64]bool{}
+	var gaps []string
 	collect := func(until func() bool, timeout time.Duration) {
 		t.Helper()
 		deadline := time.After(timeout)
 		for !until() {
 			select {
 			case m := <-sub.C:
-				var r mqtt.Reading
+				if !strings.HasSuffix(m.Topic, "/reading") && !strings.HasSuffix(m.Topic, "/events") {
+					continue // the state and the heads' info carry no number
+				}
+				var r struct {
+					Seq      uint64
+					Type     string
+					From, To uint64
+					Reason   string
+				}
 				if err := json.Unmarshal(m.Payload, &r); err != nil {
 					t.Fatal(err)
 				}
 				seqs[r.Seq] = true
+				if r.Type == "gap" {
+					gaps = append(gaps, fmt.Sprintf("%s %d-%d", r.Reason, r.From, r.To))
+					for s := r.From; s <= r.To; s++ {
+						seqs[s] = true
+					}
+				}
 			case <-deadline:
-				t.Fatalf("%d readings received", len(seqs))
+				t.Fatalf("%d sequence numbers received or named by gap events %q", len(seqs), gaps)
 			}
 		}
 	}
@@ -455,7 +471,7 @@ func TestSIGKILLDuringOutage(t *testing.T) {
 		for s := range seqs {
 			newest = max(newest, s)
 		}
-		if len(seqs) < 150 {
+		if len(gaps) == 0 || len(seqs) < 150 {
 			return false
 		}
 		lo := newest
@@ -464,6 +480,9 @@ func TestSIGKILLDuringOutage(t *testing.T) {
 		}
 		return uint64(len(seqs)) == newest-lo+1
 	}, 30*time.Second)
+	if len(gaps) != 1 || !strings.HasPrefix(gaps[0], "unclean_stop ") {
+		t.Errorf("gap events %q, want one of reason unclean_stop", gaps)
+	}
 }
 
 // waitPolls waits until the Modbus responder has answered n more
