@@ -24,6 +24,10 @@ type headAlarms struct {
 	set    *alarms.Set
 	other  map[string]string // alarm name -> the other head of a deviation
 	events []alarms.Event    // scratch
+	// states holds the retained state last published of each alarm (by
+	// name), sent again on every connection to a broker: a broker that
+	// restarted without persistence has lost it.
+	states map[string][]byte
 }
 
 // newHeadAlarms builds a head's alarms, restoring saved states.
@@ -242,7 +246,8 @@ func (h *head) valueOf(v float64, alarm string) *float64 {
 	return finite(v)
 }
 
-// publishAlarmState publishes an alarm's retained state.
+// publishAlarmState publishes an alarm's retained state. The head's alarm
+// lock is held.
 func (d *Daemon) publishAlarmState(h *head, a *alarms.Alarm, now time.Time) {
 	cfg := d.config()
 	st := a.Status()
@@ -257,11 +262,30 @@ func (d *Daemon) publishAlarmState(h *head, a *alarms.Alarm, now time.Time) {
 	if !st.ShelvedUntil.IsZero() {
 		p.ShelvedUntil = st.ShelvedUntil.UTC().Format(mqtt.TimeLayout)
 	}
+	var payload []byte
 	d.append(mqtt.KindState, mqttTopics(cfg).Alarm(h.cfg.Name, st.Name), true, func(seq uint64) []byte {
 		p.Seq = seq
-		b, _ := json.Marshal(p)
-		return b
+		payload, _ = json.Marshal(p)
+		return payload
 	})
+	if ha := h.alarms; ha != nil && payload != nil {
+		if ha.states == nil {
+			ha.states = map[string][]byte{}
+		}
+		ha.states[st.Name] = payload
+	}
+}
+
+// alarmStateMessages are the retained states last published of every
+// alarm, to send again on a new connection.
+func (d *Daemon) alarmStateMessages(heads []*head, topics mqtt.Topics) []mqtt.Message {
+	var msgs []mqtt.Message
+	eachAlarm(heads, func(h *head, ha *headAlarms, a *alarms.Alarm) {
+		if p := ha.states[a.Name()]; p != nil {
+			msgs = append(msgs, mqtt.Message{Topic: topics.Alarm(h.cfg.Name, a.Name()), Payload: p, Retain: true})
+		}
+	})
+	return msgs
 }
 
 // append sends an event or state through the durable outbox when there
@@ -389,14 +413,22 @@ func (d *Daemon) publishAllAlarmStates() {
 	heads := d.heads
 	d.mu.Unlock()
 	now := d.now()
+	eachAlarm(heads, func(h *head, _ *headAlarms, a *alarms.Alarm) { d.publishAlarmState(h, a, now) })
+}
+
+// eachAlarm calls f for every alarm of heads, in order, with its head's
+// alarm lock held.
+func eachAlarm(heads []*head, f func(h *head, ha *headAlarms, a *alarms.Alarm)) {
 	for _, h := range heads {
-		if ha := h.alarms; ha != nil {
-			ha.mu.Lock()
-			for i := range ha.set.Len() {
-				d.publishAlarmState(h, ha.set.At(i), now)
-			}
-			ha.mu.Unlock()
+		ha := h.alarms
+		if ha == nil {
+			continue
 		}
+		ha.mu.Lock()
+		for i := range ha.set.Len() {
+			f(h, ha, ha.set.At(i))
+		}
+		ha.mu.Unlock()
 	}
 }
 

@@ -129,6 +129,33 @@ heads:
 	}
 }
 
+// A broker that restarts without persistence has lost every retained
+// message: on reconnecting the daemon sends each alarm's retained state
+// again, the same message as last published.
+func TestAlarmStatesRetainedAcrossBrokerRestart(t *testing.T) {
+	broker := mqtttest.Start(t)
+	srv := modbustest.NewServer(t)
+	setBlackbody(t, srv, 1, 1500)
+	cfg := alarmConfig(t, broker.URL(), srv.Addr())
+	topics := mqtt.Topics{Root: cfg.MQTT.Root, Gateway: cfg.Gateway}
+	topic := topics.Alarm("strand", "high")
+	startDaemon(t, Options{Config: cfg})
+	active := func(m mqtttest.Message) bool {
+		var st alarmState
+		return json.Unmarshal(m.Payload, &st) == nil && st.Active && st.State == "unacknowledged"
+	}
+	before := mqtttest.Subscribe(t, broker.URL(), topic).WaitFor(topic, active, 10*time.Second)
+
+	broker.Stop()
+	broker.Start()
+	// Sent again (seen live or, if later, retained), and then retained.
+	mqtttest.Subscribe(t, broker.URL(), topic).WaitFor(topic, nil, 10*time.Second)
+	after := mqtttest.Subscribe(t, broker.URL(), topic).WaitFor(topic, nil, 10*time.Second)
+	if !after.Retained || string(after.Payload) != string(before.Payload) {
+		t.Errorf("after the restart the retained state is %s (retained %v), want %s", after.Payload, after.Retained, before.Payload)
+	}
+}
+
 // alarmConfig is one head with a high alarm and no delays, for the
 // annunciation measurements.
 func alarmConfig(t testing.TB, broker, endpoint string) *config.Config {

@@ -191,6 +191,9 @@ func (d *Daemon) Run(ctx context.Context) error {
 					return err
 				}
 			}
+			// The alarms were rebuilt (their states restored): their
+			// retained states, under the rules now configured.
+			d.publishAllAlarmStates()
 		}
 	}
 }
@@ -263,10 +266,14 @@ func (d *Daemon) reload() (newPublisher bool) {
 			if publisherChanged(old, cfg) {
 				return true
 			}
-			// Removed heads lose their retained info; the others get theirs anew.
+			// Removed heads lose their retained info, removed alarms their
+			// retained state; the others get theirs anew.
 			topics := mqttTopics(old)
 			for _, name := range gone {
 				d.pub.Publish(mqtt.Message{Topic: topics.Info(name), Retain: true})
+			}
+			for _, a := range removedAlarms(old, cfg) {
+				d.pub.Publish(mqtt.Message{Topic: topics.Alarm(a[0], a[1]), Retain: true})
 			}
 			for _, m := range d.infoMessages() {
 				d.pub.Publish(m)
@@ -283,6 +290,21 @@ func removedHeads(old, cfg *config.Config) []string {
 	for _, h := range old.Heads {
 		if _, ok := cfg.Head(h.Name); !ok {
 			gone = append(gone, h.Name)
+		}
+	}
+	return gone
+}
+
+// removedAlarms lists the alarms (head, alarm) of old that cfg no longer
+// has, its removed heads' included.
+func removedAlarms(old, cfg *config.Config) [][2]string {
+	var gone [][2]string
+	for _, h := range old.Heads {
+		nh, kept := cfg.Head(h.Name)
+		for _, a := range h.Alarms {
+			if !kept || !slices.ContainsFunc(nh.Alarms, func(r config.AlarmRule) bool { return r.Name == a.Name }) {
+				gone = append(gone, [2]string{h.Name, a.Name})
+			}
 		}
 	}
 	return gone
@@ -345,7 +367,7 @@ func (d *Daemon) startPublisher(parent context.Context) (stop func(), err error)
 		StateTopic:     mqttTopics(cfg).State(),
 		Online:         []byte("online"),
 		Offline:        []byte("offline"),
-		OnConnect:      d.infoMessages,
+		OnConnect:      d.connectMessages,
 		FlushTimeout:   5 * time.Second,
 		Logger:         d.log.With("part", "mqtt"),
 	})
@@ -379,6 +401,17 @@ func (d *Daemon) infoMessages() []mqtt.Message {
 		msgs = append(msgs, mqtt.Message{Topic: topics.Info(h.cfg.Name), Payload: h.infoPayload(d.opts.Version), Retain: true})
 	}
 	return msgs
+}
+
+// connectMessages are sent first on every connection to a broker: each
+// head's info and the retained state of each alarm as last published (the
+// same message again, seq included).
+func (d *Daemon) connectMessages() []mqtt.Message {
+	msgs := d.infoMessages()
+	d.mu.Lock()
+	heads, topics := d.heads, mqttTopics(d.cfg)
+	d.mu.Unlock()
+	return append(msgs, d.alarmStateMessages(heads, topics)...)
 }
 
 // bus is one field bus a line owner polls: a Modbus TCP endpoint or an

@@ -7,6 +7,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
 
+	"glowgate/alarms"
 	"glowgate/bus/modbus"
 	"glowgate/daemon/status"
 )
@@ -134,21 +135,13 @@ func (d *Daemon) feedAlarms() {
 		return
 	}
 	var views []status.AlarmView
-	for _, h := range heads {
-		ha := h.alarms
-		if ha == nil {
-			continue
-		}
-		ha.mu.Lock()
-		for i := range ha.set.Len() {
-			st := ha.set.At(i).Status()
-			views = append(views, status.AlarmView{
-				Head: h.cfg.Name, Name: st.Name, State: st.State.String(), Priority: st.Priority.String(),
-				Message: st.Message, Since: st.Since, ShelvedUntil: st.ShelvedUntil,
-			})
-		}
-		ha.mu.Unlock()
-	}
+	eachAlarm(heads, func(h *head, _ *headAlarms, a *alarms.Alarm) {
+		st := a.Status()
+		views = append(views, status.AlarmView{
+			Head: h.cfg.Name, Name: st.Name, State: st.State.String(), Priority: st.Priority.String(),
+			Message: st.Message, Since: st.Since, ShelvedUntil: st.ShelvedUntil,
+		})
+	})
 	srv.SetAlarms(views)
 }
 

@@ -136,14 +136,15 @@ type Outbox struct {
 	pending   []entry // appended, waiting for their commit, in seq order
 	spare     []entry // the buffer of the last commit, for reuse
 	pendBytes int
-	acks      []uint64        // acknowledged entries to delete at the next commit
-	discards  []uint64        // unreadable entries to delete at the next commit
-	claimed   map[uint64]bool // entries handed to the publisher: true once acknowledged
-	stored    int             // entries in the file
-	watermark uint64          // every seq up to this is committed, deleted or dropped
-	err       error           // error of the last commit attempt
-	started   uint64          // commit attempts that took their batch
-	finished  uint64          // commit attempts done, failed or not
+	acks      []uint64          // acknowledged entries to delete at the next commit
+	discards  []uint64          // unreadable entries to delete at the next commit
+	claimed   map[uint64]bool   // entries handed to the publisher: true once acknowledged
+	states    map[string]uint64 // topic of each state appended → the newest seq
+	stored    int               // entries in the file
+	watermark uint64            // every seq up to this is committed, deleted or dropped
+	err       error             // error of the last commit attempt
+	started   uint64            // commit attempts that took their batch
+	finished  uint64            // commit attempts done, failed or not
 	dropped   uint64
 	committed uint64
 	commits   uint64
@@ -195,9 +196,13 @@ func OpenOutbox(dir string, o OutboxOptions) (*Outbox, error) {
 		watermark: st.reserved,
 		stored:    st.stored,
 		claimed:   make(map[uint64]bool),
+		states:    st.states,
 		dropLog:   limiter{period: 10 * time.Second},
 		overLog:   limiter{period: time.Minute},
 		errLog:    limiter{period: time.Minute},
+	}
+	if b.states == nil {
+		b.states = map[string]uint64{}
 	}
 	b.cond = sync.NewCond(&b.mu)
 	if st.reserved > st.lastSeq {
@@ -306,6 +311,9 @@ func (b *Outbox) push(kind EntryKind, topic string, retain bool, payload func(ui
 	b.last = seq
 	e = entry{seq: seq, kind: kind, retain: retain, at: b.o.Now().UnixNano(), topic: topic, payload: p}
 	b.pending = append(b.pending, e)
+	if kind == KindState {
+		b.states[topic] = seq
+	}
 	b.pendBytes += e.encodedLen()
 	urgent = len(b.pending) >= maxPendingEntries/2 || b.pendBytes >= maxPendingBytes/2
 	return e, urgent, kind != KindReading && seq <= b.reserved, nil
@@ -813,6 +821,19 @@ func (b *Outbox) release() {
 // earlyEntries is how many events and states wait to be sent before their
 // commit; more go when committed.
 const earlyEntries = 256
+
+// superseded reports whether e is a state with a newer one appended for
+// its topic: it is still delivered (its number must arrive) but not
+// retained, lest it overwrite the newer state at the broker when it
+// comes late, from the backlog.
+func (b *Outbox) superseded(e *entry) bool {
+	if e.kind != KindState {
+		return false
+	}
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	return b.states[e.topic] > e.seq
+}
 
 // dropEarly forgets the entries waiting to be sent before their commit.
 func (b *Outbox) dropEarly() {

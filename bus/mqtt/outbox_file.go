@@ -134,6 +134,7 @@ type fileState struct {
 	lastSeq  uint64
 	reserved uint64 // ≥ lastSeq
 	stored   int
+	states   map[string]uint64 // topic of each retained state held → its newest seq
 }
 
 // checkFile opens path read-only and walks every entry, so that a damaged
@@ -220,6 +221,12 @@ func checkFile(path string) (st fileState, err error) {
 				}
 				prev = e.seq
 				st.stored++
+				if e.kind == KindState {
+					if st.states == nil {
+						st.states = map[string]uint64{}
+					}
+					st.states[e.topic] = e.seq // ascending: the last is the newest
+				}
 			}
 		}
 		return nil

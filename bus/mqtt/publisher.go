@@ -869,7 +869,8 @@ func (p *Publisher) sendEarly(l *link, e *entry) {
 }
 
 func (p *Publisher) handOut(l *link, e *entry, src source) {
-	l.out <- outgoing{m: Message{Topic: e.topic, Payload: e.payload, Retain: e.retain}, src: src, seq: e.seq}
+	retain := e.retain && !p.o.Outbox.superseded(e)
+	l.out <- outgoing{m: Message{Topic: e.topic, Payload: e.payload, Retain: retain}, src: src, seq: e.seq}
 	l.n++
 	if src == fromLive {
 		l.liveN++
