@@ -3,6 +3,7 @@ package mqtt_test
 import (
 	"encoding/json"
 	"fmt"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"testing"
@@ -557,5 +558,39 @@ func waitDepth(t *testing.T, ob *mqtt.Outbox, n int) {
 		if err := ob.Sync(); err != nil {
 			t.Fatal(err)
 		}
+	}
+}
+
+// A retained state that comes late, from the backlog, after a newer state
+// of its topic went out live, is still delivered (its number must arrive)
+// but not retained: the broker keeps the newer one.
+func TestOutboxStaleStateNotRetained(t *testing.T) {
+	broker := mqtttest.Start(t)
+	ob := openOutbox(t, t.TempDir())
+	topic := tp.Alarm("h1", "high")
+	state := func(v string) {
+		t.Helper()
+		if _, err := ob.Append(mqtt.KindState, topic, true, func(seq uint64) []byte {
+			return fmt.Appendf(nil, `{"seq":%d,"state":%q}`, seq, v)
+		}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	// Appended while no broker is reachable: the old state lies behind a
+	// backlog of readings that takes a while to drain.
+	appendReadings(t, ob, tp.Reading("h1"), sampleReading(), 20000)
+	state("unacknowledged")
+	o := testOptions(t, broker.URL())
+	o.Outbox = ob
+	p := newPublisher(t, o)
+	stop := run(t, p)
+	defer stop()
+	waitConnected(t, p)
+	state("normal") // live: overtakes the backlog
+	waitDepth(t, ob, 0)
+
+	m := mqtttest.Subscribe(t, broker.URL(), topic).WaitFor(topic, nil, wait)
+	if !strings.Contains(string(m.Payload), `"state":"normal"`) || !m.Retained {
+		t.Errorf("retained state %s (retained %v), want the newer one, normal", m.Payload, m.Retained)
 	}
 }
