@@ -6,30 +6,155 @@ import (
 	"errors"
 	"net"
 	"net/url"
+	"sync"
+	"time"
 
 	paho "github.com/eclipse/paho.mqtt.golang"
 	"golang.org/x/net/proxy"
 )
 
-// readBuffer is the size of a connection's read buffer: many PUBACKs (4
-// bytes each) or a few incoming commands.
-const readBuffer = 4096
+const (
+	// readBuffer is the size of a connection's read buffer: many PUBACKs
+	// (4 bytes each) or a few incoming commands.
+	readBuffer = 4096
+	// maxUnsent bounds what a connection holds written but not yet sent;
+	// a Write beyond it waits.
+	maxUnsent = 256 << 10
+	// closeFlush bounds how long Close waits to send what is held (the
+	// DISCONNECT, typically), so that the broker sees a clean goodbye.
+	closeFlush = time.Second
+)
 
-// bufferedConn reads its connection through a buffer. paho reads a packet
-// a few bytes at a time (the fixed header's first byte, each byte of the
-// remaining length, then the rest), one system call each on a bare
-// connection: a PUBACK cost three reads. Through the buffer one read takes
-// whatever has arrived, often the acknowledgements of many messages.
+// bufferedConn is the connection to a broker, buffered both ways.
+//
+// paho reads a packet a few bytes at a time (the fixed header's first
+// byte, each byte of the remaining length, then the rest), one system call
+// each on a bare connection: a PUBACK cost three reads. Through the read
+// buffer one read takes whatever has arrived, often the acknowledgements
+// of many messages.
+//
+// paho writes each packet with a system call of its own, from one
+// goroutine. Here a Write only appends to a buffer and a sender goroutine
+// writes what has gathered: alone, a packet leaves at once (one goroutine
+// hand-over later); while a write is under way, the packets handed out
+// meanwhile gather and leave together. At 20,000 messages a second the
+// writes were a fifth of the publisher's time.
+//
+// Each write of the sender has its own deadline, writeTimeout from when
+// it starts (none when writeTimeout is not above zero); paho's write deadlines, set around each of its Writes, no
+// longer mean anything and are ignored. The first write error is returned
+// by every later Write.
 type bufferedConn struct {
 	net.Conn
-	r *bufio.Reader
+	r            *bufio.Reader
+	writeTimeout time.Duration
+
+	mu     sync.Mutex
+	cond   *sync.Cond // signalled when the sender took the buffer or failed
+	unsent []byte
+	spare  []byte
+	err    error
+	closed bool
+	kick   chan struct{}
+	done   chan struct{} // closed when the sender has returned
+}
+
+func newBufferedConn(conn net.Conn, writeTimeout time.Duration) *bufferedConn {
+	c := &bufferedConn{
+		Conn:         conn,
+		r:            bufio.NewReaderSize(conn, readBuffer),
+		writeTimeout: writeTimeout,
+		kick:         make(chan struct{}, 1),
+		done:         make(chan struct{}),
+	}
+	c.cond = sync.NewCond(&c.mu)
+	go c.send()
+	return c
 }
 
 func (c *bufferedConn) Read(p []byte) (int, error) { return c.r.Read(p) }
 
+// Write queues p for the sender. It waits only while maxUnsent bytes are
+// held already.
+func (c *bufferedConn) Write(p []byte) (int, error) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	for c.err == nil && !c.closed && len(c.unsent) >= maxUnsent {
+		c.cond.Wait()
+	}
+	switch {
+	case c.err != nil:
+		return 0, c.err
+	case c.closed:
+		return 0, net.ErrClosed
+	}
+	c.unsent = append(c.unsent, p...)
+	signal(c.kick)
+	return len(p), nil
+}
+
+// send writes what gathers until Close or the first error.
+func (c *bufferedConn) send() {
+	defer close(c.done)
+	for range c.kick {
+		c.mu.Lock()
+		out := c.unsent
+		c.unsent, c.spare = c.spare[:0], nil
+		closed := c.closed
+		c.cond.Broadcast()
+		c.mu.Unlock()
+		var err error
+		if len(out) > 0 {
+			var deadline time.Time
+			if c.writeTimeout > 0 {
+				deadline = time.Now().Add(c.writeTimeout)
+			}
+			if err = c.Conn.SetWriteDeadline(deadline); err == nil {
+				_, err = c.Conn.Write(out)
+			}
+		}
+		c.mu.Lock()
+		c.spare = out[:0]
+		if err != nil && c.err == nil {
+			c.err = err
+		}
+		c.cond.Broadcast()
+		stop := c.err != nil || (closed && len(c.unsent) == 0)
+		c.mu.Unlock()
+		if stop {
+			return
+		}
+	}
+}
+
+// SetDeadline sets the read deadline only: writes have the sender's.
+func (c *bufferedConn) SetDeadline(t time.Time) error { return c.Conn.SetReadDeadline(t) }
+
+// SetWriteDeadline is ignored: each write of the sender has its own.
+func (c *bufferedConn) SetWriteDeadline(time.Time) error { return nil }
+
+// Close sends what is held, waiting at most closeFlush, and closes the
+// connection.
+func (c *bufferedConn) Close() error {
+	c.mu.Lock()
+	if c.closed {
+		c.mu.Unlock()
+		return c.Conn.Close()
+	}
+	c.closed = true
+	c.cond.Broadcast()
+	c.mu.Unlock()
+	signal(c.kick)
+	select {
+	case <-c.done:
+	case <-time.After(closeFlush):
+	}
+	return c.Conn.Close()
+}
+
 // openConnection dials broker as paho itself would for each scheme
 // (CheckBrokers lists them; plain TCP honours the proxy environment
-// variables, as paho does) and buffers the connection's reads.
+// variables, as paho does) and buffers the connection.
 func openConnection(broker *url.URL, o paho.ClientOptions) (net.Conn, error) {
 	var conn net.Conn
 	var err error
@@ -52,5 +177,5 @@ func openConnection(broker *url.URL, o paho.ClientOptions) (net.Conn, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &bufferedConn{Conn: conn, r: bufio.NewReaderSize(conn, readBuffer)}, nil
+	return newBufferedConn(conn, o.WriteTimeout), nil
 }

@@ -27,27 +27,9 @@ func BenchmarkPublishQoS1(b *testing.B) {
 		StateTopic: tp.State(),
 		QueueSize:  b.N,
 	}
-	var acked atomic.Int64
-	done := make(chan struct{})
-	n := int64(b.N)
-	o.OnAck = func(mqtt.Message) {
-		if acked.Add(1) == n {
-			close(done)
-		}
-	}
-	p, err := mqtt.NewPublisher(o)
-	if err != nil {
-		b.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	stopped := make(chan error, 1)
-	go func() { stopped <- p.Run(ctx) }()
-	defer func() {
-		cancel()
-		if err := <-stopped; err != nil {
-			b.Error(err)
-		}
-	}()
+	var done <-chan struct{}
+	o.OnAck, done = countAcks(b.N, nil)
+	p := runBench(b, o)
 	select {
 	case <-p.Connected():
 	case <-time.After(wait):
@@ -78,6 +60,41 @@ func BenchmarkPublishQoS1(b *testing.B) {
 }
 
 // BenchmarkRawQoS1Ceiling is the plain paho client alone.
+// countAcks is an OnAck that calls each (when not nil) and closes done at
+// the n-th acknowledgement.
+func countAcks(n int, each func(mqtt.Message)) (onAck func(mqtt.Message), done <-chan struct{}) {
+	var acked atomic.Int64
+	c := make(chan struct{})
+	return func(m mqtt.Message) {
+		if each != nil {
+			each(m)
+		}
+		if acked.Add(1) == int64(n) {
+			close(c)
+		}
+	}, c
+}
+
+// runBench runs a Publisher with o until b ends, then stops it and checks
+// what Run returned.
+func runBench(b *testing.B, o mqtt.Options) *mqtt.Publisher {
+	b.Helper()
+	p, err := mqtt.NewPublisher(o)
+	if err != nil {
+		b.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	stopped := make(chan error, 1)
+	go func() { stopped <- p.Run(ctx) }()
+	b.Cleanup(func() {
+		cancel()
+		if err := <-stopped; err != nil {
+			b.Error(err)
+		}
+	})
+	return p
+}
+
 func BenchmarkRawQoS1Ceiling(b *testing.B) {
 	broker := mqtttest.Start(b)
 	r := sampleReading()
