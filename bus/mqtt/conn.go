@@ -24,6 +24,7 @@ const (
 	// last window saw gatherRate messages a second or more.
 	gatherRate   = 5000
 	gatherWindow = 10 * time.Millisecond
+	gatherMin    = int(gatherRate * gatherWindow / time.Second) // Writes in a window
 	// closeFlush bounds how long Close waits to send what is held (the
 	// DISCONNECT, typically), so that the broker sees a clean goodbye.
 	closeFlush = time.Second
@@ -109,7 +110,7 @@ func (c *bufferedConn) Write(p []byte) (int, error) {
 		c.window, c.last, c.count = now, c.count, 0
 	}
 	c.count++
-	if c.sending || len(c.unsent) > 0 || c.last >= gatherRate*int(gatherWindow)/int(time.Second) {
+	if c.sending || len(c.unsent) > 0 || c.last >= gatherMin {
 		c.unsent = append(c.unsent, p...)
 		c.mu.Unlock()
 		signal(c.kick)
