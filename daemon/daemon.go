@@ -313,7 +313,7 @@ func removedAlarms(old, cfg *config.Config) [][2]string {
 func publisherChanged(old, cfg *config.Config) bool {
 	return old.Gateway != cfg.Gateway || old.MQTT.Root != cfg.MQTT.Root ||
 		old.MQTT.ClientID != cfg.MQTT.ClientID || old.MQTT.Username != cfg.MQTT.Username ||
-		old.MQTT.Queue != cfg.MQTT.Queue || !slices.Equal(old.MQTT.Brokers, cfg.MQTT.Brokers)
+		old.MQTT.Queue != cfg.MQTT.Queue || old.MQTT.QoS != cfg.MQTT.QoS || !slices.Equal(old.MQTT.Brokers, cfg.MQTT.Brokers)
 }
 
 func mqttTopics(cfg *config.Config) mqtt.Topics {
@@ -353,23 +353,24 @@ func (d *Daemon) startPublisher(parent context.Context) (stop func(), err error)
 	outbox := d.outbox
 	d.mu.Unlock()
 	pub, err := mqtt.NewPublisher(mqtt.Options{
-		Brokers:        brokers,
-		ClientID:       clientID,
-		Username:       cfg.MQTT.Username,
-		Password:       cfg.MQTT.Password,
-		TLS:            tlsConfig,
-		Outbox:         outbox,
-		CommandTopic:   commandTopic,
-		OnCommand:      onCommand,
-		KeepAlive:      cfg.MQTT.KeepAlive,
-		ConnectTimeout: cfg.MQTT.ConnectTimeout,
-		QueueSize:      cfg.MQTT.Queue,
-		StateTopic:     mqttTopics(cfg).State(),
-		Online:         []byte("online"),
-		Offline:        []byte("offline"),
-		OnConnect:      d.connectMessages,
-		FlushTimeout:   5 * time.Second,
-		Logger:         d.log.With("part", "mqtt"),
+		Brokers:            brokers,
+		ClientID:           clientID,
+		Username:           cfg.MQTT.Username,
+		Password:           cfg.MQTT.Password,
+		TLS:                tlsConfig,
+		Outbox:             outbox,
+		CommandTopic:       commandTopic,
+		OnCommand:          onCommand,
+		KeepAlive:          cfg.MQTT.KeepAlive,
+		ConnectTimeout:     cfg.MQTT.ConnectTimeout,
+		QueueSize:          cfg.MQTT.Queue,
+		ReadingsAtMostOnce: cfg.MQTT.QoS == 0,
+		StateTopic:         mqttTopics(cfg).State(),
+		Online:             []byte("online"),
+		Offline:            []byte("offline"),
+		OnConnect:          d.connectMessages,
+		FlushTimeout:       5 * time.Second,
+		Logger:             d.log.With("part", "mqtt"),
 	})
 	if err != nil {
 		return nil, fmt.Errorf("mqtt publisher: %w", err)
@@ -487,7 +488,7 @@ func (d *Daemon) poll(ctx context.Context) error {
 			} else {
 				r = h.polled(res.Time, res.Blocks, scratch)
 			}
-			payload := d.publish(topicOf[res.Poll], pub, r)
+			payload := d.publish(topicOf[res.Poll], pub, cfg.MQTT.QoS == 0, r)
 			d.evaluate(h, &r)
 			if srv := d.status; srv != nil {
 				srv.ReadingJSON(&r, payload)
@@ -515,12 +516,13 @@ func (d *Daemon) poll(ctx context.Context) error {
 }
 
 // publish numbers a reading, remembers it as the head's latest and hands
-// it to the publisher without waiting. It returns the payload queued,
+// it to the publisher without waiting (at QoS 0 when atMostOnce; the
+// outbox's publisher knows that of itself). It returns the payload queued,
 // which the caller may read but not change.
 //
 // Numbering and queueing happen under one lock, so that the queue holds
 // the readings of all lines in sequence order.
-func (d *Daemon) publish(topic string, pub *mqtt.Publisher, r mqtt.Reading) (payload []byte) {
+func (d *Daemon) publish(topic string, pub *mqtt.Publisher, atMostOnce bool, r mqtt.Reading) (payload []byte) {
 	if ob := d.outbox; ob != nil {
 		_, err := ob.Append(mqtt.KindReading, topic, false, func(seq uint64) []byte {
 			r.Seq = seq
@@ -534,7 +536,7 @@ func (d *Daemon) publish(topic string, pub *mqtt.Publisher, r mqtt.Reading) (pay
 		d.seqMu.Lock()
 		r.Seq = d.seq.Add(1)
 		payload = r.AppendJSON(make([]byte, 0, 640))
-		pub.Publish(mqtt.Message{Topic: topic, Payload: payload})
+		pub.Publish(mqtt.Message{Topic: topic, Payload: payload, AtMostOnce: atMostOnce})
 		d.seqMu.Unlock()
 	}
 	d.mu.Lock()

@@ -247,7 +247,7 @@ func BenchmarkBacklogLiveLatency(b *testing.B) {
 //
 //	go test -run '^$' -bench OutboxSustained -benchtime 200000x ./bus/mqtt/
 func BenchmarkOutboxSustained(b *testing.B) {
-	for _, rate := range []int{10000, 20000, 30000} {
+	for _, rate := range []int{10000, 20000, 25000, 30000} {
 		b.Run(fmt.Sprintf("offered=%d", rate), func(b *testing.B) { benchSustained(b, rate) })
 	}
 }

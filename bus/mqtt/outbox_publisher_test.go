@@ -594,3 +594,41 @@ func TestOutboxStaleStateNotRetained(t *testing.T) {
 		t.Errorf("retained state %s (retained %v), want the newer one, normal", m.Payload, m.Retained)
 	}
 }
+
+// With ReadingsAtMostOnce the outbox's readings go at QoS 0 and are done
+// with once written; its events and states still go at QoS 1. The outbox
+// empties either way.
+func TestOutboxReadingsAtMostOnce(t *testing.T) {
+	broker := mqtttest.Start(t)
+	sub := mqtttest.Subscribe(t, broker.URL(), "glowgate/gw1/#")
+	ob := openOutbox(t, t.TempDir())
+	o := testOptions(t, broker.URL())
+	o.Outbox, o.ReadingsAtMostOnce = ob, true
+	p := newPublisher(t, o)
+	stop := run(t, p)
+	defer stop()
+	appendReadings(t, ob, tp.Reading("h1"), sampleReading(), 50)
+	if _, err := ob.Append(mqtt.KindEvent, tp.Events(), false, func(seq uint64) []byte {
+		return fmt.Appendf(nil, `{"type":"alarm","seq":%d}`, seq)
+	}); err != nil {
+		t.Fatal(err)
+	}
+	readings := 0
+	for readings < 50 {
+		m, ok := sub.Next(wait)
+		if !ok {
+			t.Fatalf("%d readings of 50 arrived", readings)
+		}
+		if m.Topic == tp.Reading("h1") {
+			readings++
+			if m.QoS != 0 {
+				t.Fatalf("reading at QoS %d, want 0", m.QoS)
+			}
+		}
+	}
+	m := sub.WaitFor(tp.Events(), nil, wait)
+	if m.QoS != 1 {
+		t.Errorf("event at QoS %d, want 1", m.QoS)
+	}
+	waitDepth(t, ob, 0)
+}

@@ -24,6 +24,10 @@ type Message struct {
 	Topic   string
 	Payload []byte
 	Retain  bool
+	// AtMostOnce sends the message at QoS 0: no PUBACK, and it is done
+	// with once written to the connection, so a connection that breaks
+	// then loses it. Otherwise QoS 1.
+	AtMostOnce bool
 }
 
 // Defaults of Options fields left zero.
@@ -72,6 +76,9 @@ type Options struct {
 	// Window is the number of QoS 1 publications in flight, sent and not
 	// yet acknowledged (default 64, at most QueueSize).
 	Window int
+	// ReadingsAtMostOnce sends the outbox's readings at QoS 0 (see
+	// Message.AtMostOnce); its events and states still go at QoS 1.
+	ReadingsAtMostOnce bool
 	// StateTopic, when set, carries the retained connection state: Online
 	// is published on every connection, Offline is the Will (retained,
 	// QoS 1) and is published before a clean stop. Empty payloads default
@@ -579,7 +586,11 @@ func (p *Publisher) write(l *link) {
 		case <-l.dead:
 			return
 		case o := <-l.out:
-			tok := l.c.Publish(o.m.Topic, 1, o.m.Retain, o.m.Payload)
+			qos := byte(1)
+			if o.m.AtMostOnce {
+				qos = 0
+			}
+			tok := l.c.Publish(o.m.Topic, qos, o.m.Retain, o.m.Payload)
 			select {
 			case l.toks <- pending{tok: tok, m: o.m, src: o.src, seq: o.seq}:
 			case <-l.dead:
@@ -869,8 +880,9 @@ func (p *Publisher) sendEarly(l *link, e *entry) {
 }
 
 func (p *Publisher) handOut(l *link, e *entry, src source) {
-	retain := e.retain && !p.o.Outbox.superseded(e)
-	l.out <- outgoing{m: Message{Topic: e.topic, Payload: e.payload, Retain: retain}, src: src, seq: e.seq}
+	m := Message{Topic: e.topic, Payload: e.payload, Retain: e.retain && !p.o.Outbox.superseded(e),
+		AtMostOnce: e.kind == KindReading && p.o.ReadingsAtMostOnce}
+	l.out <- outgoing{m: m, src: src, seq: e.seq}
 	l.n++
 	if src == fromLive {
 		l.liveN++

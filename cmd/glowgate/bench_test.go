@@ -22,7 +22,7 @@ import (
 var rssFor = flag.Duration("rss-for", time.Minute, "how long BenchmarkRunRSS lets the daemon run before reading its RSS")
 
 // BenchmarkRunEndToEnd runs the glowgate binary as its own process
-// publishing at QoS 1 to a real Mosquitto, with Modbus TCP responders and
+// publishing at QoS 1 (or 0) to a real Mosquitto, with Modbus TCP responders and
 // a subscriber in the test process. It reports readings/s delivered and
 // the latency from acquisition to the subscriber:
 //
@@ -33,6 +33,7 @@ var rssFor = flag.Duration("rss-for", time.Minute, "how long BenchmarkRunRSS let
 //	                         to an address are: the daemon is the ceiling
 //	heads=50/1000-per-s      every head every 50 ms: latency at a plant-like load
 //	heads=64/10Hz            the footprint target's load
+//	…/qos=0                  readings at QoS 0 (mqtt.qos: 0)
 //
 // Latency is the subscriber's clock minus the reading's time. That time is
 // when the poll's request was sent, before the reply, and is truncated to
@@ -51,13 +52,16 @@ func BenchmarkRunEndToEnd(b *testing.B) {
 		heads     int
 		endpoints int
 		period    time.Duration
+		qos       int
 	}{
-		{"heads=50/flat-out", 50, 1, 2 * time.Millisecond},
-		{"heads=50/endpoints=50/flat-out", 50, 50, 2 * time.Millisecond},
-		{"heads=50/1000-per-s", 50, 1, 50 * time.Millisecond},
-		{"heads=64/10Hz", 64, 1, 100 * time.Millisecond},
+		{"heads=50/flat-out", 50, 1, 2 * time.Millisecond, 1},
+		{"heads=50/endpoints=50/flat-out", 50, 50, 2 * time.Millisecond, 1},
+		{"heads=50/endpoints=50/flat-out/qos=0", 50, 50, 2 * time.Millisecond, 0},
+		{"heads=50/1000-per-s", 50, 1, 50 * time.Millisecond, 1},
+		{"heads=50/1000-per-s/qos=0", 50, 1, 50 * time.Millisecond, 0},
+		{"heads=64/10Hz", 64, 1, 100 * time.Millisecond, 1},
 	} {
-		b.Run(bc.name, func(b *testing.B) { benchRun(b, bc.heads, bc.endpoints, bc.period) })
+		b.Run(bc.name, func(b *testing.B) { benchRun(b, bc.heads, bc.endpoints, bc.period, bc.qos) })
 	}
 }
 
@@ -66,9 +70,9 @@ var e2eProfile = flag.String("e2e-profile", "", "directory for the daemon's CPU 
 // spreadConfig is gatewayConfig with n heads spread round-robin over one
 // endpoint per address, each head unit 1 on its endpoint's responder when
 // there are as many addresses as heads.
-func spreadConfig(broker string, addrs []string, n int, period time.Duration) string {
+func spreadConfig(broker string, addrs []string, n int, period time.Duration, qos int) string {
 	var b strings.Builder
-	fmt.Fprintf(&b, "gateway: lifecycle-gw\nunit: degC\nmqtt:\n  brokers: [%s]\n  queue: 200000\nendpoints:\n", broker)
+	fmt.Fprintf(&b, "gateway: lifecycle-gw\nunit: degC\nmqtt:\n  brokers: [%s]\n  queue: 200000\n  qos: %d\nendpoints:\n", broker, qos)
 	for i, a := range addrs {
 		fmt.Fprintf(&b, "  - {name: ep%02d, address: %s, timeout: 200ms}\n", i+1, a)
 	}
@@ -103,14 +107,14 @@ func procCPU(tb testing.TB, pid int) time.Duration {
 	return time.Duration(utime+stime) * 10 * time.Millisecond
 }
 
-func benchRun(b *testing.B, n, endpoints int, period time.Duration) {
+func benchRun(b *testing.B, n, endpoints int, period time.Duration, qos int) {
 	broker := mqtttest.Start(b)
 	addrs := make([]string, endpoints)
 	for i := range addrs {
 		addrs[i] = headServer(b, (n+endpoints-1)/endpoints, 1400).Addr()
 	}
 	cfgPath := filepath.Join(b.TempDir(), "gw.yaml")
-	writeFile(b, cfgPath, spreadConfig(broker.URL(), addrs, n, period))
+	writeFile(b, cfgPath, spreadConfig(broker.URL(), addrs, n, period, qos))
 	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
 	args := []string{"run", "-config", cfgPath, "-log-level", "warn"}
 	if *e2eProfile != "" {

@@ -34,7 +34,10 @@ type MQTT struct {
 	KeepAlive      time.Duration
 	ConnectTimeout time.Duration
 	Queue          int // in-memory publish queue length
-	Username       string
+	// QoS is the MQTT QoS of readings, 1 (the default) or 0. Events and
+	// states always go at QoS 1.
+	QoS      int
+	Username string
 	// Password comes from password_file or password_env, never from the
 	// configuration itself; it is never logged or printed.
 	Password               string

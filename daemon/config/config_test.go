@@ -225,6 +225,7 @@ func TestDefaults(t *testing.T) {
 			KeepAlive:      30 * time.Second,
 			ConnectTimeout: 5 * time.Second,
 			Queue:          10000,
+			QoS:            1,
 			Outbox:         Outbox{MaxEntries: 1000000, CommitInterval: 50 * time.Millisecond},
 		},
 		Endpoints: []Endpoint{{Name: "net", Address: "127.0.0.1:502", Timeout: 500 * time.Millisecond, BackoffMax: 10 * time.Second}},
@@ -281,6 +282,7 @@ func TestEveryField(t *testing.T) {
 		KeepAlive:      time.Minute,
 		ConnectTimeout: 1500 * time.Millisecond,
 		Queue:          500,
+		QoS:            0,
 		Username:       "kiln",
 		Outbox:         Outbox{MaxEntries: 1000000, CommitInterval: 50 * time.Millisecond},
 	}

@@ -49,6 +49,7 @@ func (d *decoder) config(root val) *Config {
 			KeepAlive:      defaultKeepAlive,
 			ConnectTimeout: defaultConnectTimeout,
 			Queue:          defaultQueue,
+			QoS:            1,
 		},
 	}
 	f := d.fields(root, "gateway", "unit", "c2", "state_dir", "mqtt", "commands", "http", "endpoints", "lines", "heads")
@@ -106,7 +107,7 @@ func (d *decoder) config(root val) *Config {
 }
 
 func (d *decoder) mqtt(v val, m *MQTT) {
-	f := d.fields(v, "brokers", "root", "client_id", "keepalive", "connect_timeout", "queue", "username",
+	f := d.fields(v, "brokers", "root", "client_id", "keepalive", "connect_timeout", "queue", "qos", "username",
 		"password_file", "password_env", "allow_plaintext_password", "tls", "outbox")
 	defer d.delivery(f, m)
 	if bv := f.get("brokers"); bv.n != nil && bv.n.Kind == yaml.ScalarNode {
@@ -162,6 +163,11 @@ func (d *decoder) mqtt(v val, m *MQTT) {
 	if v := f.get("queue"); v.n != nil {
 		if x, ok := d.integer(v, 1, maxQueue); ok {
 			m.Queue = int(x)
+		}
+	}
+	if v := f.get("qos"); v.n != nil {
+		if x, ok := d.integer(v, 0, 1); ok {
+			m.QoS = int(x)
 		}
 	}
 	if v := f.get("username"); v.n != nil {

@@ -16,6 +16,7 @@ type Message struct {
 	Topic    string
 	Payload  []byte
 	Retained bool // sent because of the subscription, from the broker's retained store
+	QoS      byte // as delivered: the lower of the publisher's and the subscription's (1)
 }
 
 // Subscriber is a test-side MQTT client subscribed at QoS 1 to one topic
@@ -115,7 +116,7 @@ func (s *Subscriber) onConnect(c paho.Client) {
 }
 
 func (s *Subscriber) receive(_ paho.Client, m paho.Message) {
-	msg := Message{Topic: m.Topic(), Payload: m.Payload(), Retained: m.Retained()}
+	msg := Message{Topic: m.Topic(), Payload: m.Payload(), Retained: m.Retained(), QoS: m.Qos()}
 	select {
 	case s.msgs <- msg:
 	case <-s.done:
