@@ -43,10 +43,10 @@ const (
 // publisher's time. While messages come fast (gatherRate a second or
 // more, over the last gatherWindow), a Write here only appends to a
 // buffer and a sender goroutine writes what has gathered: the packets
-// handed out while a write is under way leave together. At slower rates a
-// Write writes at once, as on a bare connection, sparing each message the
-// hand-over to the sender (measured: the p99 latency at 1,000 readings a
-// second doubled with it).
+// handed out while a write is under way leave together. At slower rates,
+// where little would gather, a Write writes at once, as on a bare
+// connection, sparing each message a hand-over to the sender goroutine
+// (the wakeup of another thread).
 //
 // Each write has its own deadline, writeTimeout from when it starts (none
 // when writeTimeout is not above zero); paho's write deadlines, set around
