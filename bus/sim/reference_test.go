@@ -146,24 +146,30 @@ func TestServerRatioTemperature(t *testing.T) {
 func pymodbusRead(t *testing.T, addr string, unit uint8, table modbus.Table, start, count uint16) ([]uint16, int) {
 	t.Helper()
 	host, port, _ := strings.Cut(addr, ":")
+	return runPymodbusReader(t, "testdata/read_pymodbus.py", host, port,
+		strconv.Itoa(int(unit)), table.String(), strconv.Itoa(int(start)), strconv.Itoa(int(count)))
+}
+
+// runPymodbusReader runs one of the pymodbus reader scripts in testdata
+// with args and returns the registers it printed, or the exception code.
+func runPymodbusReader(t *testing.T, script string, args ...string) ([]uint16, int) {
+	t.Helper()
 	ctx, cancel := context.WithTimeout(t.Context(), 30*time.Second)
 	defer cancel()
-	cmd := exec.CommandContext(ctx, "/usr/bin/python3", "testdata/read_pymodbus.py", host, port,
-		strconv.Itoa(int(unit)), table.String(), strconv.Itoa(int(start)), strconv.Itoa(int(count)))
-	out, err := cmd.Output()
+	out, err := exec.CommandContext(ctx, "/usr/bin/python3", append([]string{script}, args...)...).Output()
 	if err != nil {
 		var stderr string
 		if ee, ok := err.(*exec.ExitError); ok {
 			stderr = string(ee.Stderr)
 		}
-		t.Fatalf("read_pymodbus.py: %v\n%s", err, stderr)
+		t.Fatalf("%s: %v\n%s", script, err, stderr)
 	}
 	var res struct {
 		Registers []uint16 `json:"registers"`
 		Exception *int     `json:"exception"`
 	}
 	if err := json.Unmarshal(out, &res); err != nil {
-		t.Fatalf("read_pymodbus.py output %q: %v", out, err)
+		t.Fatalf("%s output %q: %v", script, out, err)
 	}
 	if res.Exception != nil {
 		return nil, *res.Exception

@@ -5,7 +5,6 @@ package sim
 import (
 	"bytes"
 	"context"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -591,29 +590,8 @@ func TestRTUServerLifecycle(t *testing.T) {
 // returns its registers, or the exception code it saw.
 func pymodbusReadRTU(t *testing.T, device string, baud int, unit uint8, table modbus.Table, start, count uint16) ([]uint16, int) {
 	t.Helper()
-	ctx, cancel := context.WithTimeout(t.Context(), 30*time.Second)
-	defer cancel()
-	cmd := exec.CommandContext(ctx, "/usr/bin/python3", "testdata/read_pymodbus_rtu.py", device, strconv.Itoa(baud),
+	return runPymodbusReader(t, "testdata/read_pymodbus_rtu.py", device, strconv.Itoa(baud),
 		strconv.Itoa(int(unit)), table.String(), strconv.Itoa(int(start)), strconv.Itoa(int(count)))
-	out, err := cmd.Output()
-	if err != nil {
-		var stderr string
-		if ee, ok := err.(*exec.ExitError); ok {
-			stderr = string(ee.Stderr)
-		}
-		t.Fatalf("read_pymodbus_rtu.py: %v\n%s", err, stderr)
-	}
-	var res struct {
-		Registers []uint16 `json:"registers"`
-		Exception *int     `json:"exception"`
-	}
-	if err := json.Unmarshal(out, &res); err != nil {
-		t.Fatalf("read_pymodbus_rtu.py output %q: %v", out, err)
-	}
-	if res.Exception != nil {
-		return nil, *res.Exception
-	}
-	return res.Registers, 0
 }
 
 // An independent Modbus RTU client (Debian's python3-pymodbus 3.0) reads the
