@@ -235,3 +235,64 @@ func TestRestoreNoData(t *testing.T) {
 		t.Fatalf("data after restore: events %q, want cleared", format(evs))
 	}
 }
+
+// A reloaded configuration carries its alarms over: an unchanged rule's
+// alarm goes on where it was (its on-delay is not restarted, its rate
+// history is kept), a changed rule's alarm is restored from its state
+// (its delays start again), a new rule's alarm starts normal, and the old
+// set is left as it was.
+func TestCarrySet(t *testing.T) {
+	high := highRule()
+	high.OnDelay = 10 * time.Second
+	rise := Rule{Name: "heating", Kind: RateRise, Setpoint: 5, Deadband: 1, Window: 10 * time.Second, Priority: PriorityMedium}
+	old, err := NewSet([]Rule{high, rise})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Hot from 0 s and heating at 10 K/s: the high alarm's on-delay is
+	// under way, the rate alarm has its history.
+	for sec := 0; sec <= 6; sec++ {
+		if evs := old.Evaluate(Sample{Time: at(float64(sec)), Temperature: 1600 + 10*float64(sec)}, nil); sec < 5 && len(evs) != 0 {
+			t.Fatalf("t=%d s: %q", sec, format(evs))
+		}
+	}
+	if old.Alarm("heating").State() != Unacknowledged {
+		t.Fatalf("rate alarm %v before the reload, want active", old.Alarm("heating").State())
+	}
+
+	changed := high
+	changed.Message = "strand much too hot"
+	fresh := Rule{Name: "cold", Kind: Low, Setpoint: 900, Deadband: 10, Priority: PriorityLow}
+	for _, c := range []struct {
+		name  string
+		rules []Rule
+		// when the high alarm activates, counting from 0 s
+		want float64
+	}{
+		{"unchanged", []Rule{high, rise, fresh}, 10},
+		{"changed", []Rule{changed, rise, fresh}, 17},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			s, err := CarrySet(c.rules, old)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if st := s.Alarm("heating").State(); st != Unacknowledged {
+				t.Errorf("rate alarm carried over as %v", st)
+			}
+			if st := s.Alarm("cold").State(); st != Normal {
+				t.Errorf("new alarm %v, want normal", st)
+			}
+			for sec := 7.0; sec <= 20; sec++ {
+				evs := s.Evaluate(Sample{Time: at(sec), Temperature: 1700}, nil)
+				activated := strings.Contains(format(evs), "activated normal>unacknowledged")
+				if activated != (sec == c.want) {
+					t.Fatalf("t=%g s: events %q; want the high alarm's activation at %g s", sec, format(evs), c.want)
+				}
+			}
+		})
+	}
+	if st := old.Alarm(high.Name).State(); st != Normal {
+		t.Errorf("old set's high alarm %v after carrying, want it left normal", st)
+	}
+}

@@ -44,6 +44,34 @@ func RestoreSet(rules []Rule, saved []Saved) (*Set, error) {
 	return s, nil
 }
 
+// CarrySet returns the alarms of rules as RestoreSet does from old's
+// snapshot, except that an alarm whose rule is unchanged in old is taken
+// over whole: its pending delays, rate history and no-data clock go on,
+// so that reloading a configuration neither restarts an on-delay nor
+// blinds a rate alarm. A nil old gives new alarms. old is left as it was.
+func CarrySet(rules []Rule, old *Set) (*Set, error) {
+	var saved []Saved
+	if old != nil {
+		saved = old.Snapshot(nil)
+	}
+	s, err := RestoreSet(rules, saved)
+	if err != nil || old == nil {
+		return s, err
+	}
+	for i := range s.alarms {
+		a := old.Alarm(s.alarms[i].rule.Name)
+		if a == nil || a.rule != s.alarms[i].rule {
+			continue
+		}
+		s.alarms[i] = *a
+		if a.ring != nil {
+			ring := *a.ring
+			s.alarms[i].ring = &ring
+		}
+	}
+	return s, nil
+}
+
 // savedIndex returns the index of the entry of saved named name, or -1.
 func savedIndex(saved []Saved, name string) int {
 	for i := range saved {

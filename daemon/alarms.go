@@ -30,8 +30,10 @@ type headAlarms struct {
 	states map[string][]byte
 }
 
-// newHeadAlarms builds a head's alarms, restoring saved states.
-func newHeadAlarms(h config.Head, saved []alarms.Saved) (*headAlarms, error) {
+// newHeadAlarms builds a head's alarms, carried over from prev (the same
+// head's alarms before a reload) when there is one, else restored from
+// saved states.
+func newHeadAlarms(h config.Head, saved []alarms.Saved, prev *headAlarms) (*headAlarms, error) {
 	if len(h.Alarms) == 0 {
 		return nil, nil
 	}
@@ -54,14 +56,30 @@ func newHeadAlarms(h config.Head, saved []alarms.Saved) (*headAlarms, error) {
 			keep = append(keep, s)
 		}
 	}
-	set, err := alarms.RestoreSet(rules, keep)
+	ha := &headAlarms{other: other}
+	var err error
+	if prev != nil {
+		prev.mu.Lock()
+		ha.set, err = alarms.CarrySet(rules, prev.set)
+		for name, p := range prev.states {
+			if ha.set != nil && ha.set.Alarm(name) != nil {
+				if ha.states == nil {
+					ha.states = map[string][]byte{}
+				}
+				ha.states[name] = p
+			}
+		}
+		prev.mu.Unlock()
+	} else {
+		ha.set, err = alarms.RestoreSet(rules, keep)
+	}
 	if err != nil {
-		set, err = alarms.NewSet(rules)
+		ha.set, err = alarms.NewSet(rules)
 	}
 	if err != nil {
 		return nil, err
 	}
-	return &headAlarms{set: set, other: other}, nil
+	return ha, nil
 }
 
 // sample is what the alarms see of a reading: the processed temperature

@@ -4,8 +4,10 @@ import (
 	"encoding/json"
 	"fmt"
 	"net/http"
+	"os"
 	"slices"
 	"strings"
+	"syscall"
 	"testing"
 	"time"
 
@@ -156,10 +158,53 @@ func TestAlarmStatesRetainedAcrossBrokerRestart(t *testing.T) {
 	}
 }
 
+// A configuration reload in the middle of an on-delay carries the alarm
+// over: it activates an on-delay after the condition began, not an
+// on-delay after the reload.
+func TestAlarmOnDelayCarriedOverReload(t *testing.T) {
+	broker := mqtttest.Start(t)
+	srv := modbustest.NewServer(t)
+	setBlackbody(t, srv, 1, 1400)
+	cfg := parseConfig(t, strings.Replace(alarmConfigText(t, broker.URL(), srv.Addr()), "priority: high}", "priority: high, on_delay: 3s}", 1))
+	topics := mqtt.Topics{Root: cfg.MQTT.Root, Gateway: cfg.Gateway}
+	events := mqtttest.Subscribe(t, broker.URL(), topics.Events())
+	readings := mqtttest.Subscribe(t, broker.URL(), topics.Reading("strand"))
+	reload := make(chan os.Signal, 1)
+	startDaemon(t, Options{Config: cfg, Load: func() (*config.Config, error) { return cfg, nil }, Reload: reload})
+	readings.WaitFor("", nil, 10*time.Second)
+
+	setBlackbody(t, srv, 1, 1500)
+	var r mqtt.Reading
+	hotAt := func(m mqtttest.Message) bool { return json.Unmarshal(m.Payload, &r) == nil && *r.Temperature > 1450 }
+	readings.WaitFor("", hotAt, 10*time.Second)
+	hot := r.Time
+	// Two seconds into the three-second on-delay, by the daemon's clock.
+	readings.WaitFor("", func(m mqtttest.Message) bool { return hotAt(m) && r.Time.Sub(hot) >= 2*time.Second }, 10*time.Second)
+	reload <- syscall.SIGHUP
+	var ev alarmEvent
+	events.WaitFor("", func(m mqtttest.Message) bool {
+		return json.Unmarshal(m.Payload, &ev) == nil && ev.To == "unacknowledged"
+	}, 10*time.Second)
+	at, err := time.Parse(time.RFC3339Nano, ev.Time)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Carried over: about 3 s after the first hot reading; restarted by
+	// the reload it would be 5 s or more.
+	if d := at.Sub(hot); d < 3*time.Second || d > 4500*time.Millisecond {
+		t.Errorf("activated %v after the first hot reading, want about the on-delay (3 s)", d)
+	}
+}
+
 // alarmConfig is one head with a high alarm and no delays, for the
 // annunciation measurements.
 func alarmConfig(t testing.TB, broker, endpoint string) *config.Config {
-	return parseConfig(t, fmt.Sprintf(`
+	return parseConfig(t, alarmConfigText(t, broker, endpoint))
+}
+
+// alarmConfigText is alarmConfig's text.
+func alarmConfigText(t testing.TB, broker, endpoint string) string {
+	return fmt.Sprintf(`
 gateway: alarm-gw
 unit: K
 mqtt: {brokers: [%s], queue: 100000}
@@ -175,7 +220,7 @@ heads:
       - {name: long, band: {from: 1.025um, to: 1.075um}, signal: {address: 2, type: float32}}
     alarms:
       - {name: high, kind: high, setpoint: 1450K, deadband: 5K, priority: high}
-`, broker, t.TempDir(), endpoint))
+`, broker, t.TempDir(), endpoint)
 }
 
 // TestAlarmMetrics: /metrics of a running daemon, parsed with the

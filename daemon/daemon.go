@@ -100,7 +100,7 @@ func New(o Options) (*Daemon, error) {
 	if d.savedAlarms == nil {
 		d.savedAlarms = map[string][]alarms.Saved{}
 	}
-	if err := d.attachAlarms(heads); err != nil {
+	if err := d.attachAlarms(heads, nil); err != nil {
 		return nil, err
 	}
 	if c := o.Config.Commands; c.Enabled {
@@ -113,13 +113,19 @@ func New(o Options) (*Daemon, error) {
 	return d, nil
 }
 
-// attachAlarms gives each head its alarms, in the states last saved.
-func (d *Daemon) attachAlarms(heads []*head) error {
+// attachAlarms gives each head its alarms: carried over from the head of
+// the same name in prev (the heads before a reload), else in the states
+// last saved.
+func (d *Daemon) attachAlarms(heads, prev []*head) error {
 	for _, h := range heads {
 		d.mu.Lock()
 		saved := d.savedAlarms[h.cfg.Name]
 		d.mu.Unlock()
-		ha, err := newHeadAlarms(h.cfg, saved)
+		var carried *headAlarms
+		if i := slices.IndexFunc(prev, func(p *head) bool { return p.cfg.Name == h.cfg.Name }); i >= 0 {
+			carried = prev[i].alarms
+		}
+		ha, err := newHeadAlarms(h.cfg, saved, carried)
 		if err != nil {
 			return fmt.Errorf("head %s: %w", h.cfg.Name, err)
 		}
@@ -249,7 +255,10 @@ func (d *Daemon) reload() (newPublisher bool) {
 	if err == nil {
 		var heads []*head
 		if heads, err = buildHeads(cfg); err == nil {
-			err = d.attachAlarms(heads)
+			d.mu.Lock()
+			prev := d.heads
+			d.mu.Unlock()
+			err = d.attachAlarms(heads, prev)
 		}
 		if err == nil {
 			d.mu.Lock()
