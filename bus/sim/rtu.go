@@ -216,18 +216,9 @@ func (s *RTUServer) Start(ctx context.Context) error {
 // cannot be started again.
 func (s *RTUServer) Close() error {
 	s.mu.Lock()
-	switch s.state {
-	case stateNew:
-		s.state = stateClosed
-		close(s.closed)
-		s.mu.Unlock()
-		return nil
-	case stateClosed:
-		s.mu.Unlock()
-		<-s.closed // another Close may still be at work
+	if !s.state.close(&s.mu, s.closed) {
 		return nil
 	}
-	s.state = stateClosed
 	defer close(s.closed)
 	s.stopCtx()
 	close(s.done)

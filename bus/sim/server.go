@@ -95,6 +95,27 @@ const (
 	stateClosed
 )
 
+// close moves a server to stateClosed; mu, which guards it, is held. It
+// reports whether the server was running, and so has something to stop,
+// with mu still held; otherwise it returns with mu unlocked, closed closed
+// (at once for a server never started, after the Close at work for one
+// closing).
+func (st *serverState) close(mu *sync.Mutex, closed chan struct{}) (running bool) {
+	switch *st {
+	case stateNew:
+		*st = stateClosed
+		close(closed)
+		mu.Unlock()
+		return false
+	case stateClosed:
+		mu.Unlock()
+		<-closed // another Close may still be at work
+		return false
+	}
+	*st = stateClosed
+	return true
+}
+
 // NewServer checks the heads and returns a server for them at address (host:port,
 // as net.Listen takes it; port 0 picks a free port, see Address). Each head is
 // validated with Head.Validate, unit ids must be distinct, and no fault may be
@@ -180,18 +201,9 @@ func (s *Server) Start(ctx context.Context) error {
 // Start; a closed server cannot be started again.
 func (s *Server) Close() error {
 	s.mu.Lock()
-	switch s.state {
-	case stateNew:
-		s.state = stateClosed
-		close(s.closed)
-		s.mu.Unlock()
-		return nil
-	case stateClosed:
-		s.mu.Unlock()
-		<-s.closed // another Close may still be at work
+	if !s.state.close(&s.mu, s.closed) {
 		return nil
 	}
-	s.state = stateClosed
 	defer close(s.closed)
 	s.stopCtx()
 	close(s.done)
