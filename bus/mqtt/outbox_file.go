@@ -195,10 +195,12 @@ func checkFile(path string) (st fileState, err error) {
 		st.lastSeq = binary.BigEndian.Uint64(ls)
 		st.reserved = st.lastSeq
 		if rs := meta.Get(keyReservedSeq); rs != nil {
-			if len(rs) != 8 || binary.BigEndian.Uint64(rs) < st.lastSeq {
-				return fmt.Errorf("%s: damaged outbox file: reserved sequence number %x below the last, %d", path, rs, st.lastSeq)
+			if len(rs) != 8 {
+				return fmt.Errorf("%s: damaged outbox file: reserved sequence number of %d bytes", path, len(rs))
 			}
-			st.reserved = binary.BigEndian.Uint64(rs)
+			if st.reserved = binary.BigEndian.Uint64(rs); st.reserved < st.lastSeq {
+				return fmt.Errorf("%s: damaged outbox file: reserved sequence number %d below the last, %d", path, st.reserved, st.lastSeq)
+			}
 		}
 		for _, name := range [][]byte{bucketReadings, bucketKept} {
 			b := tx.Bucket(name)

@@ -550,6 +550,19 @@ func TestOutboxFileErrors(t *testing.T) {
 			}
 			_ = db.Close()
 		}, `outbox format "glowgate outbox 9"`},
+		{"reserved below the last", func(p string) {
+			write(t, p, good)
+			db, err := bolt.Open(p, 0o600, nil)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := db.Update(func(tx *bolt.Tx) error {
+				return tx.Bucket(bucketMeta).Put(keyReservedSeq, seqKey(5))
+			}); err != nil {
+				t.Fatal(err)
+			}
+			_ = db.Close()
+		}, "reserved sequence number 5 below the last, 3010"},
 		{"directory", func(p string) {
 			if err := os.Mkdir(p, 0o700); err != nil {
 				t.Fatal(err)
