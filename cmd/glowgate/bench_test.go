@@ -6,6 +6,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"net"
 	"os"
 	"path/filepath"
 	"slices"
@@ -21,10 +22,11 @@ import (
 
 var rssFor = flag.Duration("rss-for", time.Minute, "how long BenchmarkRunRSS lets the daemon run before reading its RSS")
 
-// BenchmarkRunEndToEnd runs the glowgate binary as its own process
-// publishing at QoS 1 (or 0) to a real Mosquitto, with Modbus TCP responders and
-// a subscriber in the test process. It reports readings/s delivered and
-// the latency from acquisition to the subscriber:
+// BenchmarkRunEndToEnd runs the simulator (glowgate sim) and the daemon
+// (glowgate run), each as its own process, the daemon publishing at QoS 1
+// (or 0) to a real Mosquitto, with a subscriber in the test process. It
+// reports readings/s delivered and the latency from acquisition to the
+// subscriber:
 //
 //	heads=50/flat-out        50 heads on one endpoint, every head every 2 ms
 //	                         (25,000 readings/s offered): one connection's
@@ -62,6 +64,47 @@ func BenchmarkRunEndToEnd(b *testing.B) {
 		{"heads=64/10Hz", 64, 1, 100 * time.Millisecond, 1},
 	} {
 		b.Run(bc.name, func(b *testing.B) { benchRun(b, bc.heads, bc.endpoints, bc.period, bc.qos) })
+	}
+}
+
+// freeAddrs returns n loopback addresses whose ports were free a moment
+// ago, for the simulator to listen on.
+func freeAddrs(tb testing.TB, n int) []string {
+	tb.Helper()
+	addrs := make([]string, n)
+	for i := range addrs {
+		l, err := net.Listen("tcp", "127.0.0.1:0")
+		if err != nil {
+			tb.Fatal(err)
+		}
+		addrs[i] = l.Addr().String()
+		defer l.Close() // held until all are chosen, so that none repeats
+	}
+	return addrs
+}
+
+// startSim runs `glowgate sim` on the configuration at cfgPath, as its own
+// process, and waits until it serves all of its endpoints.
+func startSim(tb testing.TB, cfgPath string, endpoints int) {
+	tb.Helper()
+	r, w := io.Pipe()
+	start(tb, w, "sim", "-config", cfgPath, "-log-level", "warn")
+	serving := make(chan struct{})
+	go func() {
+		sc := bufio.NewScanner(r)
+		for n := 0; sc.Scan(); {
+			if strings.HasPrefix(sc.Text(), "serving ") {
+				if n++; n == endpoints {
+					close(serving)
+				}
+			}
+		}
+	}()
+	tb.Cleanup(func() { w.Close() })
+	select {
+	case <-serving:
+	case <-time.After(10 * time.Second):
+		tb.Fatalf("the simulator did not serve %d endpoints within 10 s", endpoints)
 	}
 }
 
@@ -109,12 +152,9 @@ func procCPU(tb testing.TB, pid int) time.Duration {
 
 func benchRun(b *testing.B, n, endpoints int, period time.Duration, qos int) {
 	broker := mqtttest.Start(b)
-	addrs := make([]string, endpoints)
-	for i := range addrs {
-		addrs[i] = headServer(b, (n+endpoints-1)/endpoints, 1400).Addr()
-	}
 	cfgPath := filepath.Join(b.TempDir(), "gw.yaml")
-	writeFile(b, cfgPath, spreadConfig(broker.URL(), addrs, n, period, qos))
+	writeFile(b, cfgPath, spreadConfig(broker.URL(), freeAddrs(b, endpoints), n, period, qos))
+	startSim(b, cfgPath, endpoints)
 	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
 	args := []string{"run", "-config", cfgPath, "-log-level", "warn"}
 	if *e2eProfile != "" {
@@ -177,11 +217,12 @@ func benchRun(b *testing.B, n, endpoints int, period time.Duration, qos int) {
 }
 
 // BenchmarkRunRSS is the footprint at the target load: the glowgate
-// binary with 64 heads polled at 10 Hz (640 readings/s) against a
-// loopback Modbus responder and a real Mosquitto. It reports the resident
+// binary with 64 heads polled at 10 Hz (640 readings/s) on one endpoint
+// served by the simulator (glowgate sim, its own process), publishing to
+// a real Mosquitto. It reports the resident
 // set size after -rss-for (default a minute), with the peak (VmHWM)
 // beside it, and the CPU the daemon used over that time, in % of one core
-// (the responder's and the broker's work is not in it, but the kernel's
+// (the simulator's and the broker's work is not in it, but the kernel's
 // loopback delivery of what the daemon sends is). The status page is on,
 // as by default; GLOWGATE_RSS_NO_HTTP=1 measures without it.
 //
@@ -189,17 +230,17 @@ func benchRun(b *testing.B, n, endpoints int, period time.Duration, qos int) {
 func BenchmarkRunRSS(b *testing.B) {
 	broker := mqtttest.Start(b)
 	const heads = 64
-	srv := headServer(b, heads, 1400)
 	names := make([]string, heads)
 	for i := range names {
 		names[i] = fmt.Sprintf("head%02d", i+1)
 	}
 	cfgPath := filepath.Join(b.TempDir(), "gw.yaml")
-	text := strings.ReplaceAll(gatewayConfig(broker.URL(), srv.Addr(), names...), "period: 50ms", "period: 100ms")
+	text := strings.ReplaceAll(gatewayConfig(broker.URL(), freeAddrs(b, 1)[0], names...), "period: 50ms", "period: 100ms")
 	if os.Getenv("GLOWGATE_RSS_NO_HTTP") != "" {
 		text = strings.Replace(text, "unit: degC\n", "unit: degC\nhttp: {listen: \"\"}\n", 1)
 	}
 	writeFile(b, cfgPath, text)
+	startSim(b, cfgPath, 1)
 	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
 
 	p := start(b, io.Discard, "run", "-config", cfgPath)
