@@ -241,11 +241,12 @@ func (c *RTUClient) Close() error {
 	return c.tr.close()
 }
 
-// crc16 is CRC-16/MODBUS (Modbus over Serial Line V1.02, 6.2.2): reflected
-// polynomial 0xA001, initial value 0xFFFF, no final XOR. On the wire the low
-// byte goes first. Check values (LIBRARIES.md): "123456789" gives 0x4B37;
-// 01 03 00 00 00 0A is sent with C5 CD.
-func crc16(b []byte) uint16 {
+// CRC16 is the CRC of Modbus RTU frames, CRC-16/MODBUS (Modbus over Serial
+// Line V1.02, 6.2.2): reflected polynomial 0xA001, initial value 0xFFFF, no
+// final XOR. On the wire the low byte goes first (AppendCRC). Check values
+// (LIBRARIES.md): "123456789" gives 0x4B37; 01 03 00 00 00 0A is sent with
+// C5 CD.
+func CRC16(b []byte) uint16 {
 	crc := uint16(0xFFFF)
 	for _, x := range b {
 		crc ^= uint16(x)
@@ -258,6 +259,12 @@ func crc16(b []byte) uint16 {
 		}
 	}
 	return crc
+}
+
+// AppendCRC appends the CRC of frame, low byte first.
+func AppendCRC(frame []byte) []byte {
+	crc := CRC16(frame)
+	return append(frame, byte(crc), byte(crc>>8))
 }
 
 // lineState is what the transport last knew of its device, for logging
@@ -510,7 +517,7 @@ func (t *rtuTransport) readFrame(ctx context.Context, firstBy time.Time) ([]byte
 	}
 	frame := t.rx[:need]
 	got := uint16(frame[need-2]) | uint16(frame[need-1])<<8
-	if want := crc16(frame[:need-2]); got != want {
+	if want := CRC16(frame[:need-2]); got != want {
 		return nil, fmt.Errorf("%w: %s: CRC 0x%04x, computed 0x%04x over % X", ErrFrame, t.device, got, want, frame[:need-2])
 	}
 	return frame, nil

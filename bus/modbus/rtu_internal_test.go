@@ -1,6 +1,7 @@
 package modbus
 
 import (
+	"bytes"
 	"testing"
 	"time"
 )
@@ -9,14 +10,17 @@ import (
 // catalogue check "123456789" gives 0x4B37, and the request 01 03 00 00 00 0A
 // goes on the wire followed by C5 CD (low byte first).
 func TestCRC16(t *testing.T) {
-	if got := crc16([]byte("123456789")); got != 0x4B37 {
-		t.Errorf(`crc16("123456789") = %04X, want 4B37`, got)
+	if got := CRC16([]byte("123456789")); got != 0x4B37 {
+		t.Errorf(`CRC16("123456789") = %04X, want 4B37`, got)
 	}
-	if got := crc16([]byte{0x01, 0x03, 0x00, 0x00, 0x00, 0x0A}); byte(got) != 0xC5 || byte(got>>8) != 0xCD {
-		t.Errorf("crc16(01 03 00 00 00 0A) = %04X, want C5 CD on the wire", got)
+	if got := CRC16([]byte{0x01, 0x03, 0x00, 0x00, 0x00, 0x0A}); byte(got) != 0xC5 || byte(got>>8) != 0xCD {
+		t.Errorf("CRC16(01 03 00 00 00 0A) = %04X, want C5 CD on the wire", got)
 	}
-	if got := crc16(nil); got != 0xFFFF {
-		t.Errorf("crc16 of nothing = %04X, want the preset FFFF", got)
+	if got := CRC16(nil); got != 0xFFFF {
+		t.Errorf("CRC16 of nothing = %04X, want the preset FFFF", got)
+	}
+	if got := AppendCRC([]byte{0x01, 0x03, 0x00, 0x00, 0x00, 0x0A}); !bytes.Equal(got[6:], []byte{0xC5, 0xCD}) {
+		t.Errorf("CRC of 01 03 00 00 00 0A sent as % X, want C5 CD", got[6:])
 	}
 }
 

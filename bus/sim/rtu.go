@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"glowgate/bus/modbus"
 	"io/fs"
 	"log/slog"
 	"os"
@@ -382,7 +383,7 @@ func (s *RTUServer) frame(f []byte, first, last time.Time, out []byte, late []pe
 		return out, late
 	}
 	body := f[:len(f)-2]
-	if got, want := uint16(f[len(f)-2])|uint16(f[len(f)-1])<<8, crc16(body); got != want {
+	if got, want := uint16(f[len(f)-2])|uint16(f[len(f)-1])<<8, modbus.CRC16(body); got != want {
 		s.logger.Debug("RTU frame with a wrong CRC; ignored", "crc", got, "want", want, "bytes", len(f))
 		return out, late
 	}
@@ -408,7 +409,7 @@ func (s *RTUServer) frame(f []byte, first, last time.Time, out []byte, late []pe
 	default:
 		out = h.answer(out, body[1:], now, elapsed)
 	}
-	out = appendCRC(out)
+	out = modbus.AppendCRC(out)
 	switch hit.kind {
 	case CRCError:
 		out[len(out)-2] ^= 0xFF

@@ -23,18 +23,6 @@ import (
 	"glowgate/bus/modbus/modbustest"
 )
 
-// The check values of CRC-16/MODBUS (LIBRARIES.md, "Modbus spec", and the
-// catalogue check value of CRC-16/MODBUS: "123456789" -> 0x4B37).
-func TestCRC16(t *testing.T) {
-	if got := crc16([]byte("123456789")); got != 0x4B37 {
-		t.Errorf(`crc16("123456789") = %#04x, want 0x4B37`, got)
-	}
-	// Read 10 holding registers from 0 at unit 1: C5 CD on the wire.
-	if got := appendCRC([]byte{0x01, 0x03, 0x00, 0x00, 0x00, 0x0A}); !bytes.Equal(got[6:], []byte{0xC5, 0xCD}) {
-		t.Errorf("CRC of 01 03 00 00 00 0A sent as % X, want C5 CD", got[6:])
-	}
-}
-
 // startRTU starts an RTU server for heads with clk as its scenario clock and
 // closes it when the test ends.
 func startRTU(t testing.TB, cfg RTUConfig, heads []Head, clk *testClock, logger *slog.Logger) *RTUServer {
@@ -99,7 +87,7 @@ func (p *rtuPeer) raw() {
 
 // readRequest is the RTU frame of a register read.
 func readRequest(unit, fc byte, addr, qty uint16) []byte {
-	return appendCRC([]byte{unit, fc, byte(addr >> 8), byte(addr), byte(qty >> 8), byte(qty)})
+	return modbus.AppendCRC([]byte{unit, fc, byte(addr >> 8), byte(addr), byte(qty >> 8), byte(qty)})
 }
 
 func (p *rtuPeer) write(frames ...[]byte) {
@@ -158,7 +146,7 @@ func (p *rtuPeer) exception(unit, fc byte) byte {
 
 func checkFrame(t testing.TB, b []byte) {
 	t.Helper()
-	if got, want := uint16(b[len(b)-2])|uint16(b[len(b)-1])<<8, crc16(b[:len(b)-2]); got != want {
+	if got, want := uint16(b[len(b)-2])|uint16(b[len(b)-1])<<8, modbus.CRC16(b[:len(b)-2]); got != want {
 		t.Fatalf("answer % X: CRC %#04x, want %#04x", b, got, want)
 	}
 }
@@ -246,11 +234,11 @@ func TestRTUServerAnswers(t *testing.T) {
 		{"table not served", readRequest(1, 0x03, 0, 2), 0x03, 0x02},
 		{"quantity 0", readRequest(1, 0x04, 0, 0), 0x04, 0x03},
 		{"quantity 126", readRequest(2, 0x03, 0, 126), 0x03, 0x03},
-		{"write single register", appendCRC([]byte{1, 0x06, 0, 0, 0, 7}), 0x06, 0x01},
-		{"write multiple registers", appendCRC([]byte{2, 0x10, 0, 100, 0, 1, 2, 0, 7}), 0x10, 0x01},
-		{"read coils", appendCRC([]byte{1, 0x01, 0, 0, 0, 8}), 0x01, 0x01},
+		{"write single register", modbus.AppendCRC([]byte{1, 0x06, 0, 0, 0, 7}), 0x06, 0x01},
+		{"write multiple registers", modbus.AppendCRC([]byte{2, 0x10, 0, 100, 0, 1, 2, 0, 7}), 0x10, 0x01},
+		{"read coils", modbus.AppendCRC([]byte{1, 0x01, 0, 0, 0, 8}), 0x01, 0x01},
 		// Function 0x2B has no fixed length here: the frame ends with t3.5 of silence.
-		{"unknown length function", appendCRC([]byte{1, 0x2B, 0x0E, 0x01, 0x00}), 0x2B, 0x01},
+		{"unknown length function", modbus.AppendCRC([]byte{1, 0x2B, 0x0E, 0x01, 0x00}), 0x2B, 0x01},
 	} {
 		unit := tc.frame[0]
 		p.write(tc.frame)
@@ -329,7 +317,7 @@ func TestRTUFaults(t *testing.T) {
 		{Fault{Kind: CRCError}, func(t *testing.T, p *rtuPeer, req []byte, h Head) {
 			p.write(req)
 			b := p.mustRead(13)
-			if crc := uint16(b[11]) | uint16(b[12])<<8; crc == crc16(b[:11]) {
+			if crc := uint16(b[11]) | uint16(b[12])<<8; crc == modbus.CRC16(b[:11]) {
 				t.Errorf("answer % X has a correct CRC", b)
 			}
 			if b[0] != h.Unit || b[1] != 0x04 || b[2] != 8 {
