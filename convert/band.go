@@ -223,7 +223,12 @@ func (b *Band) Signal(t float64) float64 {
 // x ≥ 0.5 the denominator is formed as exp(x) − 1, which is then within
 // 3 ulp of expm1(x); below it math.Expm1 is used. Both results are 0 for
 // t ≤ 0 and NaN for NaN.
-func (b *Band) SignalDeriv(t float64) (s, ds float64) {
+func (b *Band) SignalDeriv(t float64) (s, ds float64) { return signalDeriv(b.rules, t) }
+
+// signalDeriv is SignalDeriv of a channel whose quadrature is rules: the
+// rule for t, with t's edge cases (0 for t ≤ 0, NaN for NaN, +Inf for
+// +Inf).
+func signalDeriv(rules []bandRule, t float64) (s, ds float64) {
 	if !(t > 0) {
 		if math.IsNaN(t) {
 			return math.NaN(), math.NaN()
@@ -233,5 +238,5 @@ func (b *Band) SignalDeriv(t float64) (s, ds float64) {
 	if math.IsInf(t, 1) {
 		return math.Inf(1), math.Inf(1)
 	}
-	return ruleAt(b.rules, t).signalDeriv(1 / t)
+	return ruleAt(rules, t).signalDeriv(1 / t)
 }

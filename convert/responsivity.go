@@ -279,15 +279,4 @@ func (m *Responsivity) Signal(t float64) float64 {
 // SignalDeriv returns S(T) and dS/dT at t kelvin from one pass over the
 // nodes (see Band.SignalDeriv for the formulas); both are 0 for t ≤ 0 and
 // NaN for NaN.
-func (m *Responsivity) SignalDeriv(t float64) (s, ds float64) {
-	if !(t > 0) {
-		if math.IsNaN(t) {
-			return math.NaN(), math.NaN()
-		}
-		return 0, 0
-	}
-	if math.IsInf(t, 1) {
-		return math.Inf(1), math.Inf(1)
-	}
-	return ruleAt(m.rules, t).signalDeriv(1 / t)
-}
+func (m *Responsivity) SignalDeriv(t float64) (s, ds float64) { return signalDeriv(m.rules, t) }
