@@ -189,7 +189,8 @@ func (d *Daemon) Run(ctx context.Context) error {
 		case <-d.opts.Reload:
 			stopPolling()
 			<-polled
-			if d.reload() {
+			applied, newPublisher := d.reload()
+			if newPublisher {
 				// A new gateway or broker identity needs a new publisher.
 				stopPub()
 				if stopPub, err = d.startPublisher(pubCtx); err != nil {
@@ -197,9 +198,11 @@ func (d *Daemon) Run(ctx context.Context) error {
 					return err
 				}
 			}
-			// The alarms were rebuilt (their states restored): their
-			// retained states, under the rules now configured.
-			d.publishAllAlarmStates()
+			if applied {
+				// The alarms were rebuilt (carried over or restored):
+				// their retained states, under the rules now configured.
+				d.publishAllAlarmStates()
+			}
 		}
 	}
 }
@@ -246,10 +249,11 @@ func (d *Daemon) closeOutbox() {
 }
 
 // reload reads the configuration again and swaps it in whole when it is
-// valid; it reports whether the publisher must be rebuilt.
-func (d *Daemon) reload() (newPublisher bool) {
+// valid; it reports whether it did, and whether the publisher must be
+// rebuilt.
+func (d *Daemon) reload() (applied, newPublisher bool) {
 	if d.opts.Load == nil {
-		return false
+		return false, false
 	}
 	cfg, err := d.opts.Load()
 	if err == nil {
@@ -273,7 +277,7 @@ func (d *Daemon) reload() (newPublisher bool) {
 			d.feedHeads()
 			d.feedAlarms()
 			if publisherChanged(old, cfg) {
-				return true
+				return true, true
 			}
 			// Removed heads lose their retained info, removed alarms their
 			// retained state; the others get theirs anew.
@@ -287,11 +291,11 @@ func (d *Daemon) reload() (newPublisher bool) {
 			for _, m := range d.infoMessages() {
 				d.pub.Publish(m)
 			}
-			return false
+			return true, false
 		}
 	}
 	d.log.Error("configuration reload rejected; the running configuration stays", "err", err)
-	return false
+	return false, false
 }
 
 func removedHeads(old, cfg *config.Config) []string {
