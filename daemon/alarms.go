@@ -7,7 +7,6 @@ import (
 	"math"
 	"os"
 	"path/filepath"
-	"slices"
 	"sync"
 	"time"
 
@@ -49,13 +48,6 @@ func newHeadAlarms(h config.Head, saved []alarms.Saved, prev *headAlarms) (*head
 			other[r.Name] = r.OtherHead
 		}
 	}
-	// Saved states of alarms that are gone or changed kind are dropped.
-	var keep []alarms.Saved
-	for _, s := range saved {
-		if slices.ContainsFunc(rules, func(r alarms.Rule) bool { return r.Name == s.Name }) {
-			keep = append(keep, s)
-		}
-	}
 	ha := &headAlarms{other: other}
 	var err error
 	if prev != nil {
@@ -71,9 +63,12 @@ func newHeadAlarms(h config.Head, saved []alarms.Saved, prev *headAlarms) (*head
 		}
 		prev.mu.Unlock()
 	} else {
-		ha.set, err = alarms.RestoreSet(rules, keep)
+		// Saved states of alarms that are gone are ignored.
+		ha.set, err = alarms.RestoreSet(rules, saved)
 	}
 	if err != nil {
+		// A saved state that no longer fits its rule (its kind changed,
+		// say): the head's alarms start afresh.
 		ha.set, err = alarms.NewSet(rules)
 	}
 	if err != nil {
