@@ -77,6 +77,7 @@ type Client struct {
 	mb      gmodbus.Client
 	tr      transport
 	regs    []uint16
+	batch   batch // ReadBatch's storage
 }
 
 // NewTCPClient returns a client for the Modbus TCP server at address
@@ -212,37 +213,16 @@ type transport struct {
 // Send writes one request ADU and reads one response ADU of the length its
 // header gives. The returned slice is valid until the next Send.
 func (t *transport) Send(req []byte) ([]byte, error) {
-	ctx := t.ctx
-	if ctx == nil {
-		ctx = context.Background()
+	ctx := t.context()
+	conn, err := t.connect(ctx)
+	if err != nil {
+		return nil, err
 	}
-	if err := ctx.Err(); err != nil {
-		return nil, t.contextErr(ctx, err)
+	stop, err := t.arm(ctx, conn)
+	if err != nil {
+		return nil, err
 	}
-	if t.conn == nil {
-		dctx := ctx
-		if !t.deadline.IsZero() {
-			var cancel context.CancelFunc
-			dctx, cancel = context.WithDeadline(ctx, t.deadline)
-			defer cancel()
-		}
-		conn, err := t.dial(dctx)
-		if err != nil {
-			if ctx.Err() != nil {
-				return nil, t.contextErr(ctx, ctx.Err())
-			}
-			return nil, fmt.Errorf("%w: connect to %s: %v", ErrConnection, t.name, err)
-		}
-		t.conn = conn
-	}
-	conn := t.conn
-	if err := conn.SetDeadline(t.deadline); err != nil {
-		return nil, fmt.Errorf("%w: set deadline: %v", ErrConnection, err)
-	}
-	if ctx.Done() != nil {
-		stop := context.AfterFunc(ctx, func() { conn.SetDeadline(aLongTimeAgo) })
-		defer stop()
-	}
+	defer stop()
 	if _, err := conn.Write(req); err != nil {
 		return nil, t.ioErr(ctx, "send request", err)
 	}
@@ -253,11 +233,10 @@ func (t *transport) Send(req []byte) ([]byte, error) {
 	if err != nil {
 		return nil, t.ioErr(ctx, "read response header", err)
 	}
-	n := int(binary.BigEndian.Uint16(t.buf[4:6]))
-	if n < 2 || n > maxMBAPField {
-		return nil, fmt.Errorf("%w: MBAP length field %d outside 2..%d", ErrMalformed, n, maxMBAPField)
+	end, err := aduLength(t.buf[:got])
+	if err != nil {
+		return nil, err
 	}
-	end := mbapHeader - 1 + n
 	if got > end {
 		return nil, fmt.Errorf("%w: %d bytes after a response of %d", ErrMalformed, got-end, end)
 	}
@@ -265,6 +244,63 @@ func (t *transport) Send(req []byte) ([]byte, error) {
 		return nil, t.ioErr(ctx, "read response body", err)
 	}
 	return t.buf[:end], nil
+}
+
+// aduLength is the length of the response ADU whose MBAP header begins b
+// (at least mbapHeader bytes), from the header's length field.
+func aduLength(b []byte) (int, error) {
+	n := int(binary.BigEndian.Uint16(b[4:6]))
+	if n < 2 || n > maxMBAPField {
+		return 0, fmt.Errorf("%w: MBAP length field %d outside 2..%d", ErrMalformed, n, maxMBAPField)
+	}
+	return mbapHeader - 1 + n, nil
+}
+
+// context is the context of the transaction in progress, Background when
+// none was set.
+func (t *transport) context() context.Context {
+	if t.ctx == nil {
+		return context.Background()
+	}
+	return t.ctx
+}
+
+// connect returns the connection, dialling it first when there is none,
+// within the transaction's deadline.
+func (t *transport) connect(ctx context.Context) (net.Conn, error) {
+	if err := ctx.Err(); err != nil {
+		return nil, t.contextErr(ctx, err)
+	}
+	if t.conn != nil {
+		return t.conn, nil
+	}
+	dctx := ctx
+	if !t.deadline.IsZero() {
+		var cancel context.CancelFunc
+		dctx, cancel = context.WithDeadline(ctx, t.deadline)
+		defer cancel()
+	}
+	conn, err := t.dial(dctx)
+	if err != nil {
+		if ctx.Err() != nil {
+			return nil, t.contextErr(ctx, ctx.Err())
+		}
+		return nil, fmt.Errorf("%w: connect to %s: %v", ErrConnection, t.name, err)
+	}
+	t.conn = conn
+	return conn, nil
+}
+
+// arm sets the transaction's deadline on conn and has cancelling ctx
+// interrupt its reads and writes until stop is called.
+func (t *transport) arm(ctx context.Context, conn net.Conn) (stop func() bool, err error) {
+	if err := conn.SetDeadline(t.deadline); err != nil {
+		return nil, fmt.Errorf("%w: set deadline: %v", ErrConnection, err)
+	}
+	if ctx.Done() == nil {
+		return func() bool { return false }, nil
+	}
+	return context.AfterFunc(ctx, func() { conn.SetDeadline(aLongTimeAgo) }), nil
 }
 
 func (t *transport) contextErr(ctx context.Context, err error) error {

@@ -16,13 +16,16 @@ import (
 // float32Value123456 is float32(123.456) = 0x42F6E979 widened to float64.
 var float32Value123456 = float64(float32(123.456))
 
+// pymodbusUnit7 is the register layout the pymodbus peer serves as unit 7.
+var pymodbusUnit7 = []string{"--unit", "7",
+	"--input", "100=42F6:E979,102=FF85,103=0001:0002",
+	"--holding", "0=E979:42F6,2=F642:79E9,4=79E9:F642"}
+
 // Client against an independent Modbus implementation: Debian's
 // python3-pymodbus serving fixed registers. The float layouts are those of
 // LIBRARIES.md ("Modbus spec": 123.456f = 0x42F6E979 in four orders).
 func TestClientAgainstPymodbus(t *testing.T) {
-	addr := modbustest.StartPymodbus(t, "--unit", "7",
-		"--input", "100=42F6:E979,102=FF85,103=0001:0002",
-		"--holding", "0=E979:42F6,2=F642:79E9,4=79E9:F642")
+	addr := modbustest.StartPymodbus(t, pymodbusUnit7...)
 	c := modbus.NewTCPClient(addr, 5*time.Second)
 	defer c.Close()
 
