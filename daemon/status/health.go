@@ -21,7 +21,7 @@ type lineHealth struct {
 	FailuresPerS float64 // failed polls per second
 	Failures     uint64  // failed polls since start
 	MeanMS       float64 // mean transaction time, ms
-	Busy         float64 // fraction of time spent in transactions
+	Busy         float64 // fraction of time with a transaction in flight
 }
 
 // lineRates turns the lines' counters into rates: two samples at least

@@ -122,6 +122,7 @@ func lineStats(failing bool) []modbus.LineStats {
 		Polls: []modbus.PollStats{mk("caster-strand", 100, 0, 0, false), mk("ladle-stream", 100, 2, 2, false)}}
 	melt.Times.Count = 200
 	melt.Times.Sum = 200 * 4 * time.Millisecond
+	melt.BusyTime = melt.Times.Sum // one transaction at a time
 	for i, b := range modbus.TransactionTimeBounds {
 		if b >= 5*time.Millisecond {
 			melt.Times.Buckets[i] = 200
@@ -133,6 +134,7 @@ func lineStats(failing bool) []modbus.LineStats {
 		Polls: []modbus.PollStats{mk("kiln-zone", 20, 5, 5, failing)}}
 	kiln.Times.Count = 20
 	kiln.Times.Sum = 20 * time.Second
+	kiln.BusyTime = kiln.Times.Sum
 	kiln.Times.Buckets[len(kiln.Times.Buckets)-3] = 15 // ≤ 1 s
 	kiln.Times.Buckets[len(kiln.Times.Buckets)-2] = 20
 	kiln.Times.Buckets[len(kiln.Times.Buckets)-1] = 20
