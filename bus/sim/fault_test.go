@@ -1,8 +1,11 @@
 package sim
 
 import (
+	"encoding/binary"
+	"fmt"
 	"io"
 	"log/slog"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -300,5 +303,41 @@ func TestServerRefusesCRCFault(t *testing.T) {
 	}
 	if _, err := NewRTUServer(RTUConfig{Baud: 19200}, []Head{h}, nil); err != nil {
 		t.Errorf("NewRTUServer with a CRC fault: %v", err)
+	}
+}
+
+// Requests sent together (several in flight) are answered in their order,
+// each with its own transaction id; a silent head's request is skipped and
+// a late one holds back only the answers after it.
+func TestServerAnswersRequestsInFlight(t *testing.T) {
+	clk := newTestClock()
+	silent, late, exc := twoColour(t, 3, 1500), twoColour(t, 4, 1500), twoColour(t, 5, 1500)
+	silent.Faults = []Fault{{Kind: Silent}}
+	late.Faults = []Fault{{Kind: Late, Delay: 50 * time.Millisecond}}
+	exc.Faults = []Fault{{Kind: Exception, Code: 0x04}}
+	_, addr := startServer(t, []Head{twoColour(t, 1, 1500), twoColour(t, 2, 1600), silent, late, exc}, clk, nil)
+	r := dialRaw(t, addr)
+	var batch []byte
+	for i, unit := range []byte{1, 3, 2, 5, 4, 1} {
+		batch = append(batch, tcpRequest(uint16(100+i), unit, 0x04, 0, 4)...)
+	}
+	r.conn.SetDeadline(time.Now().Add(5 * time.Second))
+	if _, err := r.conn.Write(batch); err != nil {
+		t.Fatal(err)
+	}
+	var got []string
+	for range 5 {
+		var hdr [7]byte
+		if _, err := io.ReadFull(r.conn, hdr[:]); err != nil {
+			t.Fatalf("after %q: %v", got, err)
+		}
+		pdu := make([]byte, binary.BigEndian.Uint16(hdr[4:])-1)
+		if _, err := io.ReadFull(r.conn, pdu); err != nil {
+			t.Fatal(err)
+		}
+		got = append(got, fmt.Sprintf("%d:%d:%#x", binary.BigEndian.Uint16(hdr[:]), hdr[6], pdu[0]))
+	}
+	if want := []string{"100:1:0x4", "102:2:0x4", "103:5:0x84", "104:4:0x4", "105:1:0x4"}; !slices.Equal(got, want) {
+		t.Errorf("answers %q, want %q", got, want)
 	}
 }

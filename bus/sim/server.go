@@ -1,6 +1,7 @@
 package sim
 
 import (
+	"bufio"
 	"context"
 	"encoding/binary"
 	"errors"
@@ -52,9 +53,12 @@ const logEvery = 10 * time.Second
 // closes the connection. CRCError has no meaning on TCP and NewServer refuses
 // it.
 //
-// Each connection is served by its own goroutine, one request at a time; each
-// head's state is guarded by its own mutex, so concurrent reads of one head
-// draw distinct noise samples.
+// Each connection is served by its own goroutine, one request at a time in
+// the order they came; requests a client sent without waiting (several in
+// flight, paired by transaction id) are answered in one write, a Late one
+// holding back only the answers after it. Each head's state is guarded by
+// its own mutex, so concurrent reads of one head draw distinct noise
+// samples.
 type Server struct {
 	// Now is the clock for scenario time; nil means time.Now. Set it before
 	// Start and leave it unchanged while the server runs; it is called from
@@ -295,13 +299,28 @@ func (s *Server) serve(c net.Conn) {
 		idle = DefaultIdleTimeout
 	}
 	client := c.RemoteAddr().String()
+	// Requests a client sent together (several in flight) are read from
+	// one buffer and their answers go out in one write, when no further
+	// request is waiting.
+	rd := bufio.NewReaderSize(c, 4096)
 	var in [mbapHeader + maxPDU]byte
-	out := make([]byte, 0, mbapHeader+maxPDU)
+	out := make([]byte, 0, 4096)
+	flush := func() bool {
+		if len(out) == 0 {
+			return true
+		}
+		_, err := c.Write(out)
+		out = out[:0]
+		return err == nil
+	}
 	for {
+		if rd.Buffered() == 0 && !flush() {
+			return
+		}
 		if err := c.SetDeadline(time.Now().Add(idle)); err != nil {
 			return
 		}
-		if _, err := io.ReadFull(c, in[:mbapHeader]); err != nil {
+		if _, err := io.ReadFull(rd, in[:mbapHeader]); err != nil {
 			return // closed by the client or by Close, or idle
 		}
 		proto := binary.BigEndian.Uint16(in[2:])
@@ -313,11 +332,12 @@ func (s *Server) serve(c net.Conn) {
 			}
 			return
 		}
-		if _, err := io.ReadFull(c, in[mbapHeader:mbapHeader+n-1]); err != nil {
+		if _, err := io.ReadFull(rd, in[mbapHeader:mbapHeader+n-1]); err != nil {
 			return
 		}
 		unit, req := in[6], in[mbapHeader:mbapHeader+n-1]
-		out = append(out[:0], in[:mbapHeader]...) // transaction, protocol, length (set below), unit
+		at := len(out)
+		out = append(out, in[:mbapHeader]...) // transaction, protocol, length (set below), unit
 		h, ok := s.heads[unit]
 		if !ok {
 			if ok, skipped := s.unknownUnit.allow(s.now()); ok {
@@ -331,8 +351,16 @@ func (s *Server) serve(c net.Conn) {
 			f := h.decide(elapsed)
 			switch f.kind {
 			case Silent:
+				out = out[:at]
 				continue
 			case Late:
+				// The answers before this one are not held back.
+				if at > 0 {
+					if _, err := c.Write(out[:at]); err != nil {
+						return
+					}
+					out, at = out[:copy(out, out[at:])], 0
+				}
 				if !s.wait(f.delay) {
 					return
 				}
@@ -343,15 +371,12 @@ func (s *Server) serve(c net.Conn) {
 				out = h.answer(out, req, now, elapsed)
 			}
 			if f.kind == Truncated {
-				binary.BigEndian.PutUint16(out[4:], uint16(len(out)-6))
-				c.Write(out[:len(out)/2])
+				binary.BigEndian.PutUint16(out[at+4:], uint16(len(out)-at-6))
+				c.Write(out[:at+(len(out)-at)/2])
 				return
 			}
 		}
-		binary.BigEndian.PutUint16(out[4:], uint16(len(out)-6))
-		if _, err := c.Write(out); err != nil {
-			return
-		}
+		binary.BigEndian.PutUint16(out[at+4:], uint16(len(out)-at-6))
 	}
 }
 
