@@ -434,6 +434,7 @@ type bus struct {
 	kind, name string // "endpoint" or "line", and its name
 	timeout    time.Duration
 	backoffMax time.Duration
+	inFlight   int
 	open       func() modbus.Reader
 	heads      func(h config.Head) bool
 }
@@ -443,7 +444,7 @@ func buses(cfg *config.Config, log *slog.Logger) []bus {
 	var out []bus
 	for _, ep := range cfg.Endpoints {
 		out = append(out, bus{
-			kind: "endpoint", name: ep.Name, timeout: ep.Timeout, backoffMax: ep.BackoffMax,
+			kind: "endpoint", name: ep.Name, timeout: ep.Timeout, backoffMax: ep.BackoffMax, inFlight: ep.InFlight,
 			open:  func() modbus.Reader { return modbus.NewTCPClient(ep.Address, ep.Timeout) },
 			heads: func(h config.Head) bool { return h.Endpoint == ep.Name },
 		})
@@ -511,6 +512,7 @@ func (d *Daemon) poll(ctx context.Context) error {
 			Name:       b.name,
 			Timeout:    b.timeout,
 			BackoffMax: b.backoffMax,
+			InFlight:   b.inFlight,
 			Logger:     d.log.With(b.kind, b.name),
 			Now:        d.now,
 		}, b.open(), polls, deliver)

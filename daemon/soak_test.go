@@ -59,7 +59,8 @@ const (
 // TestSoak runs 64 heads at 10 Hz through a durable outbox to a real
 // Mosquitto while faults come at random: the link to the broker cut or
 // stalled, the broker killed and restarted, heads silent or answering
-// exceptions on the TCP endpoint, heads silent or answering with CRC
+// exceptions on a Modbus TCP server (half of its heads read one request
+// at a time, half in batches of 16 in flight), heads silent or answering with CRC
 // errors on an RS-485 line (8 of the 64, served by the simulator on a
 // pseudo-terminal, faults scripted from a fixed seed), the configuration
 // reloaded. Then the faults stop and every head must read good again.
@@ -114,6 +115,9 @@ func TestSoak(t *testing.T) {
 	var hs strings.Builder
 	for i := 1; i <= soakHeads; i++ {
 		bus, unit, sim := "endpoint: ep", i, ""
+		if i%2 == 0 {
+			bus = "endpoint: batched"
+		}
 		if i > soakTCPHeads {
 			bus, unit, sim = "line: rs485", i-soakTCPHeads, line.sim(soakHeadName(i))
 		} else {
@@ -138,9 +142,11 @@ unit: K
 mqtt: {brokers: [%s], connect_timeout: 1s}
 state_dir: %s
 http: {listen: ""}
-endpoints: [{name: ep, address: %s, timeout: 100ms, backoff_max: 1s}]
-lines: %s
-heads:%s`, proxy.URL(), filepath.Join(dir, "state"), srv.Addr(), line.config(), hs.String())
+endpoints:
+  - {name: ep, address: %[3]s, timeout: 100ms, backoff_max: 1s}
+  - {name: batched, address: %[3]s, timeout: 100ms, backoff_max: 1s, in_flight: 16}
+lines: %[4]s
+heads:%[5]s`, proxy.URL(), filepath.Join(dir, "state"), srv.Addr(), line.config(), hs.String())
 	path := filepath.Join(dir, "soak.yaml")
 	if err := os.WriteFile(path, []byte(text), 0o644); err != nil {
 		t.Fatal(err)

@@ -53,6 +53,9 @@ type Endpoint struct {
 	Address    string        // host:port
 	Timeout    time.Duration // per transaction
 	BackoffMax time.Duration // cap of a failing head's retry backoff
+	// InFlight is how many requests may be in flight at once on the
+	// connection (1: one transaction at a time).
+	InFlight int
 }
 
 // Head is one pyrometer head.

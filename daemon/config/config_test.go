@@ -228,7 +228,7 @@ func TestDefaults(t *testing.T) {
 			QoS:            1,
 			Outbox:         Outbox{MaxEntries: 1000000, CommitInterval: 50 * time.Millisecond},
 		},
-		Endpoints: []Endpoint{{Name: "net", Address: "127.0.0.1:502", Timeout: 500 * time.Millisecond, BackoffMax: 10 * time.Second}},
+		Endpoints: []Endpoint{{Name: "net", Address: "127.0.0.1:502", Timeout: 500 * time.Millisecond, BackoffMax: 10 * time.Second, InFlight: 1}},
 		Heads: []Head{{
 			Name:            "h1",
 			Endpoint:        "net",
@@ -290,7 +290,7 @@ func TestEveryField(t *testing.T) {
 		t.Errorf("mqtt %+v\nwant %+v", m, wantMQTT)
 	}
 	ep, ok := cfg.Endpoint("line-a")
-	if !ok || *ep != (Endpoint{Name: "line-a", Address: "kiln-gw.local:1502", Timeout: time.Second, BackoffMax: 30 * time.Second}) {
+	if !ok || *ep != (Endpoint{Name: "line-a", Address: "kiln-gw.local:1502", Timeout: time.Second, BackoffMax: 30 * time.Second, InFlight: 16}) {
 		t.Errorf("endpoint %+v", ep)
 	}
 	if _, ok := cfg.Endpoint("nowhere"); ok {

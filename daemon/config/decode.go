@@ -39,6 +39,11 @@ const (
 	maxWavelength = 100e-6
 )
 
+// maxInFlight bounds endpoints[].in_flight: one batch for every head of a
+// well-filled endpoint, and still only a few kilobytes of answers waiting
+// in the socket. Common practice, no source.
+const maxInFlight = 128
+
 // config decodes the top-level mapping.
 func (d *decoder) config(root val) *Config {
 	c := &Config{
@@ -178,12 +183,12 @@ func (d *decoder) mqtt(v val, m *MQTT) {
 }
 
 func (d *decoder) endpoint(v val) Endpoint {
-	ep := Endpoint{Timeout: defaultTimeout, BackoffMax: defaultBackoffMax}
+	ep := Endpoint{Timeout: defaultTimeout, BackoffMax: defaultBackoffMax, InFlight: 1}
 	if v.n == nil {
 		d.errorf(v, "empty entry (want a mapping with name and address)")
 		return ep
 	}
-	f := d.fields(v, "name", "address", "timeout", "backoff_max")
+	f := d.fields(v, "name", "address", "timeout", "backoff_max", "in_flight")
 	if v := f.required("name"); v.n != nil {
 		if s, ok := d.str(v); ok {
 			if s == "" {
@@ -210,6 +215,11 @@ func (d *decoder) endpoint(v val) Endpoint {
 	if v := f.get("backoff_max"); v.n != nil {
 		if x, ok := d.positiveDuration(v); ok {
 			ep.BackoffMax = x
+		}
+	}
+	if v := f.get("in_flight"); v.n != nil {
+		if x, ok := d.integer(v, 1, maxInFlight); ok {
+			ep.InFlight = int(x)
 		}
 	}
 	if bv := f.get("backoff_max"); ep.BackoffMax < ep.Timeout && !d.failed[join(v.path, "timeout")] && !d.failed[bv.path] {

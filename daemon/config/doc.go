@@ -54,6 +54,7 @@
 //	endpoints[].address     required host:port, port 1..65535
 //	endpoints[].timeout     default 500ms; > 0
 //	endpoints[].backoff_max default 10s; > 0 and not shorter than timeout
+//	endpoints[].in_flight   default 1; 1..128 requests in flight at once
 //	heads[].name            required, unique; topic-level rules as gateway
 //	heads[].endpoint        required; names an endpoint
 //	heads[].unit_id         default 1; 0..247
