@@ -55,9 +55,11 @@ const lossMinWeight = 4.248354255291589e-18
 // for which LossFit.Slope = ΔT/Δ is given.
 const lossMinChange = 1e-12
 
-// lossExactDF is the largest number of degrees of freedom for which NewLoss
-// computes Student's t quantile with gonum's distuv (about 30 µs each);
-// above it the Cornish–Fisher expansion in studentTCritical is used.
+// lossExactDF is the largest number of degrees of freedom for which a Loss
+// computes Student's t quantile with gonum's distuv (about 15–30 µs each,
+// so each is computed when first needed: a window usually holds a steady
+// number of samples); above it the Cornish–Fisher expansion in
+// studentTCritical is used.
 const lossExactDF = 256
 
 // Loss tells a neutral loss in the sight path (Obstructed) from a
@@ -149,7 +151,7 @@ const lossExactDF = 256
 type Loss struct {
 	cfg    LossConfig
 	dropLn float64   // −ln(1 − Drop) > 0
-	tcrit  []float64 // tcrit[ν] = t_{1−p/2, ν}, ν = 1 … MaxSamples − 2
+	tcrit  []float64 // tcrit[ν] = t_{1−p/2, ν}, ν = 1 … MaxSamples − 2; 0 until needed (critical)
 	tauAvg float64   // time constant of the lag of f̄², s
 	clock  stepClock
 
@@ -244,15 +246,24 @@ func NewLoss(c LossConfig) (*Loss, error) {
 		tauAvg: c.Window.Seconds() / 10,
 	}
 	l.tcrit[0] = math.NaN()
-	z := distuv.UnitNormal.Quantile(1 - c.Significance/2)
-	for nu := 1; nu < len(l.tcrit); nu++ {
-		if nu <= lossExactDF {
-			l.tcrit[nu] = distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(nu)}.Quantile(1 - c.Significance/2)
-		} else {
-			l.tcrit[nu] = studentTCritical(z, float64(nu))
-		}
-	}
 	return l, nil
+}
+
+// critical is t_{1−p/2, ν}, the two-sided critical value at the
+// configured significance p, computed on first use and kept.
+func (l *Loss) critical(nu int) float64 {
+	if t := l.tcrit[nu]; t != 0 {
+		return t
+	}
+	q := 1 - l.cfg.Significance/2
+	var t float64
+	if nu <= lossExactDF {
+		t = distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(nu)}.Quantile(q)
+	} else {
+		t = studentTCritical(distuv.UnitNormal.Quantile(q), float64(nu))
+	}
+	l.tcrit[nu] = t
+	return t
 }
 
 // studentTCritical returns the quantile of Student's t distribution with
@@ -418,7 +429,7 @@ func (l *Loss) fit(full bool) LossFit {
 	m := &l.sums
 	n := float64(s.N)
 	span := s.Span.Seconds()
-	s.Critical = l.tcrit[s.N-2]
+	s.Critical = l.critical(s.N - 2)
 	// Centred sums of squares and products; a centred sum below
 	// lossRoundoff of its uncentred (shifted) sum is rounding, not
 	// variation.
