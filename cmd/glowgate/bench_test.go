@@ -36,6 +36,9 @@ var rssFor = flag.Duration("rss-for", time.Minute, "how long BenchmarkRunRSS let
 //	heads=50/1000-per-s      every head every 50 ms: latency at a plant-like load
 //	heads=64/10Hz            the footprint target's load
 //	…/qos=0                  readings at QoS 0 (mqtt.qos: 0)
+//	…/in_flight=N            the endpoint's requests N in flight at once
+//	                         (endpoints[].in_flight), answered by the
+//	                         simulator in one write
 //
 // Latency is the subscriber's clock minus the reading's time. That time is
 // when the poll's request was sent, before the reply, and is truncated to
@@ -55,15 +58,18 @@ func BenchmarkRunEndToEnd(b *testing.B) {
 		endpoints int
 		period    time.Duration
 		qos       int
+		inFlight  int
 	}{
-		{"heads=50/flat-out", 50, 1, 2 * time.Millisecond, 1},
-		{"heads=50/endpoints=50/flat-out", 50, 50, 2 * time.Millisecond, 1},
-		{"heads=50/endpoints=50/flat-out/qos=0", 50, 50, 2 * time.Millisecond, 0},
-		{"heads=50/1000-per-s", 50, 1, 50 * time.Millisecond, 1},
-		{"heads=50/1000-per-s/qos=0", 50, 1, 50 * time.Millisecond, 0},
-		{"heads=64/10Hz", 64, 1, 100 * time.Millisecond, 1},
+		{"heads=50/flat-out", 50, 1, 2 * time.Millisecond, 1, 1},
+		{"heads=50/flat-out/in_flight=50", 50, 1, 2 * time.Millisecond, 1, 50},
+		{"heads=50/endpoints=50/flat-out", 50, 50, 2 * time.Millisecond, 1, 1},
+		{"heads=50/endpoints=50/flat-out/qos=0", 50, 50, 2 * time.Millisecond, 0, 1},
+		{"heads=50/1000-per-s", 50, 1, 50 * time.Millisecond, 1, 1},
+		{"heads=50/1000-per-s/qos=0", 50, 1, 50 * time.Millisecond, 0, 1},
+		{"heads=64/10Hz", 64, 1, 100 * time.Millisecond, 1, 1},
+		{"heads=64/10Hz/in_flight=64", 64, 1, 100 * time.Millisecond, 1, 64},
 	} {
-		b.Run(bc.name, func(b *testing.B) { benchRun(b, bc.heads, bc.endpoints, bc.period, bc.qos) })
+		b.Run(bc.name, func(b *testing.B) { benchRun(b, bc.heads, bc.endpoints, bc.period, bc.qos, bc.inFlight) })
 	}
 }
 
@@ -113,11 +119,11 @@ var e2eProfile = flag.String("e2e-profile", "", "directory for the daemon's CPU 
 // spreadConfig is gatewayConfig with n heads spread round-robin over one
 // endpoint per address, each head unit 1 on its endpoint's responder when
 // there are as many addresses as heads.
-func spreadConfig(broker string, addrs []string, n int, period time.Duration, qos int) string {
+func spreadConfig(broker string, addrs []string, n int, period time.Duration, qos, inFlight int) string {
 	var b strings.Builder
 	fmt.Fprintf(&b, "gateway: lifecycle-gw\nunit: degC\nmqtt:\n  brokers: [%s]\n  queue: 200000\n  qos: %d\nendpoints:\n", broker, qos)
 	for i, a := range addrs {
-		fmt.Fprintf(&b, "  - {name: ep%02d, address: %s, timeout: 200ms}\n", i+1, a)
+		fmt.Fprintf(&b, "  - {name: ep%02d, address: %s, timeout: 200ms, in_flight: %d}\n", i+1, a, inFlight)
 	}
 	b.WriteString("heads:\n")
 	for i := range n {
@@ -150,10 +156,10 @@ func procCPU(tb testing.TB, pid int) time.Duration {
 	return time.Duration(utime+stime) * 10 * time.Millisecond
 }
 
-func benchRun(b *testing.B, n, endpoints int, period time.Duration, qos int) {
+func benchRun(b *testing.B, n, endpoints int, period time.Duration, qos, inFlight int) {
 	broker := mqtttest.Start(b)
 	cfgPath := filepath.Join(b.TempDir(), "gw.yaml")
-	writeFile(b, cfgPath, spreadConfig(broker.URL(), freeAddrs(b, endpoints), n, period, qos))
+	writeFile(b, cfgPath, spreadConfig(broker.URL(), freeAddrs(b, endpoints), n, period, qos, inFlight))
 	startSim(b, cfgPath, endpoints)
 	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
 	args := []string{"run", "-config", cfgPath, "-log-level", "warn"}
@@ -224,10 +230,18 @@ func benchRun(b *testing.B, n, endpoints int, period time.Duration, qos int) {
 // beside it, and the CPU the daemon used over that time, in % of one core
 // (the simulator's and the broker's work is not in it, but the kernel's
 // loopback delivery of what the daemon sends is). The status page is on,
-// as by default; GLOWGATE_RSS_NO_HTTP=1 measures without it.
+// as by default; GLOWGATE_RSS_NO_HTTP=1 measures without it. Two cases:
+// the endpoint's requests one at a time (in_flight=1, the default) and all
+// 64 in flight at once (in_flight=64).
 //
 //	go test -run '^$' -bench RunRSS -benchtime 1x ./cmd/glowgate/
 func BenchmarkRunRSS(b *testing.B) {
+	for _, n := range []int{1, 64} {
+		b.Run(fmt.Sprintf("in_flight=%d", n), func(b *testing.B) { benchRSS(b, n) })
+	}
+}
+
+func benchRSS(b *testing.B, inFlight int) {
 	broker := mqtttest.Start(b)
 	const heads = 64
 	names := make([]string, heads)
@@ -236,6 +250,7 @@ func BenchmarkRunRSS(b *testing.B) {
 	}
 	cfgPath := filepath.Join(b.TempDir(), "gw.yaml")
 	text := strings.ReplaceAll(gatewayConfig(broker.URL(), freeAddrs(b, 1)[0], names...), "period: 50ms", "period: 100ms")
+	text = strings.Replace(text, "    timeout: 200ms\n", fmt.Sprintf("    timeout: 200ms\n    in_flight: %d\n", inFlight), 1)
 	if os.Getenv("GLOWGATE_RSS_NO_HTTP") != "" {
 		text = strings.Replace(text, "unit: degC\n", "unit: degC\nhttp: {listen: \"\"}\n", 1)
 	}
