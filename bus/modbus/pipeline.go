@@ -54,10 +54,8 @@ func (c *Client) ReadBatch(ctx context.Context, reqs []Request, got func(i int, 
 			continue
 		}
 		c.framer.SlaveId = r.Unit
-		adu, err := c.framer.Encode(&gmodbus.ProtocolDataUnit{
-			FunctionCode: r.Table.function(),
-			Data:         binary.BigEndian.AppendUint16(binary.BigEndian.AppendUint16(nil, r.Address), r.Quantity),
-		})
+		b.pdu = binary.BigEndian.AppendUint16(binary.BigEndian.AppendUint16(b.pdu[:0], r.Address), r.Quantity)
+		adu, err := c.framer.Encode(&gmodbus.ProtocolDataUnit{FunctionCode: r.Table.function(), Data: b.pdu})
 		if err != nil { // goburrow's Encode fails only on an oversized PDU
 			b.answered[i] = true
 			got(i, nil, fmt.Errorf("%v: %w: %v", r, ErrInvalidRequest, err))
@@ -89,14 +87,19 @@ type batch struct {
 	adus     [][]byte // per request, its ADU (nil when it was not sent)
 	answered []bool
 	pending  int    // requests sent and not yet answered
+	pdu      []byte // the data of the request being encoded (Encode copies it)
 	out      []byte // the request ADUs, back to back
 	in       []byte // answers read and not yet taken
 	regs     []uint16
 }
 
 func (b *batch) reset(n int) {
-	b.adus = append(b.adus[:0], make([][]byte, n)...)
-	b.answered = append(b.answered[:0], make([]bool, n)...)
+	if cap(b.adus) < n {
+		b.adus, b.answered = make([][]byte, n), make([]bool, n)
+	}
+	b.adus, b.answered = b.adus[:n], b.answered[:n]
+	clear(b.adus)
+	clear(b.answered)
 	b.pending, b.out, b.in = 0, b.out[:0], b.in[:0]
 	if b.regs == nil {
 		b.regs = make([]uint16, MaxQuantity)
