@@ -34,7 +34,11 @@ func summarise(w io.Writer, cfg *config.Config) {
 		fmt.Fprintf(w, "broker  %s\n", b)
 	}
 	for _, ep := range cfg.Endpoints {
-		fmt.Fprintf(w, "endpoint %s  modbus tcp %s  timeout %s\n", ep.Name, ep.Address, ep.Timeout)
+		fmt.Fprintf(w, "endpoint %s  modbus tcp %s  timeout %s", ep.Name, ep.Address, ep.Timeout)
+		if ep.InFlight > 1 {
+			fmt.Fprintf(w, ", %d requests in flight", ep.InFlight)
+		}
+		fmt.Fprintln(w)
 		summariseHeads(w, cfg, func(h config.Head) bool { return h.Endpoint == ep.Name })
 	}
 	for _, l := range cfg.Lines {

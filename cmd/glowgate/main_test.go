@@ -332,6 +332,12 @@ func TestCheck(t *testing.T) {
 			t.Errorf("check output lacks %q:\n%s", want, errOut)
 		}
 	}
+	batched := filepath.Join(t.TempDir(), "batched.yaml")
+	writeFile(t, batched, strings.Replace(gatewayConfig("tcp://127.0.0.1:1883", "127.0.0.1:15020", "a", "b"), "timeout: 200ms\n", "timeout: 200ms\n    in_flight: 8\n", 1))
+	code, out, errOut = runCLI("check", "-config", batched)
+	if want := "endpoint ep  modbus tcp 127.0.0.1:15020  timeout 200ms, 8 requests in flight\n"; code != 0 || !strings.Contains(out, want) {
+		t.Errorf("check: status %d, output lacks %q:\n%s%s", code, want, out, errOut)
+	}
 }
 
 func TestUsage(t *testing.T) {
