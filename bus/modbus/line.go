@@ -75,28 +75,33 @@ const (
 // one Timeout, and a retry only follows a frame error.
 //
 // Scheduling: each poll has its own next-due time, at first the start of
-// Run, so polls of equal period fall due together and are read back to
-// back. Heads on one line are then sampled within a few transactions of
+// Run and then on its period's grid (the start of Run plus a whole number
+// of periods), so polls of equal period fall due together and are read
+// back to back, and fall due together again after one of them stalled or
+// failed. Heads on one line are then sampled within a few transactions of
 // each other (readings of two heads that watch one target compare
 // closely, as a deviation alarm needs), and the gateway wakes once per
 // period rather than once per poll: at 64 heads × 10 Hz that took 2.5
 // times less CPU than spreading the polls over the period (BENCHMARKS.md).
 // The owner picks the earliest due poll (the lower index on a tie), waits
-// for its due time,
-// reads it and delivers the Result. The Line adds no pause of its own
-// between transactions: on a serial line the only gap is the client's t3.5.
-// A successful poll is next due at
+// for its due time, reads it and delivers the Result. The Line adds no
+// pause of its own between transactions: on a serial line the only gap is
+// the client's t3.5.
 //
-//	max(due + Period, end of the poll)
-//
-// so a poll that fell behind does not burst to catch up. A failing poll is
-// next due at max(due + backoff, end of the poll), where backoff starts at
-// BackoffMin and doubles on each further failure up to BackoffMax: a dead
-// head costs at most one Timeout per backoff period while the others keep
-// their rate (and a serial device that vanished is reopened at that pace,
-// since the client reopens it on the next Read). Every failed poll is still
-// delivered (the consumer publishes a bad-quality reading); a success resets
-// the backoff.
+// A successful poll is next due at the first slot of its grid after its
+// due time and not before the end of the poll, so a poll that fell behind
+// skips the slots it missed rather than burst to catch up. A failing poll
+// is next due at the first slot at or after due + backoff, not before the
+// end of the poll, where backoff starts at BackoffMin and doubles on each
+// further failure up to BackoffMax: a dead head costs at most one Timeout
+// per backoff period while the others keep their rate (and a serial
+// device that vanished is reopened at that pace, since the client reopens
+// it on the next Read). Only a poll that itself took longer than its
+// period leaves its grid: it is due again at max(due + Period or backoff,
+// end of the poll), since the line cannot keep its rate and waiting for a
+// slot would lose more; it rejoins the grid at its next quicker read.
+// Every failed poll is still delivered (the consumer publishes a
+// bad-quality reading); a success resets the backoff.
 //
 // Logs: a poll that starts failing is logged once, and again each time its
 // backoff steps up (not at every poll); when it recovers a "recovered" line
@@ -129,6 +134,7 @@ type Line struct {
 	started atomic.Bool
 	blocks  [][][]uint16 // per poll, per request: the registers handed to deliver
 	batch   batchState   // pollBatches' storage
+	origin  time.Time    // the start of Run: every poll's grid begins here
 }
 
 type pollCounters struct {
@@ -355,6 +361,7 @@ func (l *Line) Run(ctx context.Context) (err error) {
 	}
 	states := make([]pollState, len(l.polls))
 	start := time.Now()
+	l.origin = start
 	l.line.start.Store(&start)
 	defer func() {
 		end := time.Now()
@@ -476,7 +483,7 @@ func (l *Line) finish(i int, st *pollState, res Result) {
 		if st.failing {
 			l.recovered(p, st, end)
 		}
-		st.due = later(st.due.Add(p.Period), end)
+		st.due = l.next(p, res, st.due, 0, end)
 		return
 	}
 	st.failures++
@@ -508,7 +515,7 @@ func (l *Line) finish(i int, st *pollState, res Result) {
 	case !st.logged && st.failures == 1:
 		st.unlogged++
 	}
-	st.due = later(st.due.Add(st.backoff), end)
+	st.due = l.next(p, res, st.due, st.backoff, end)
 }
 
 func (l *Line) recovered(p *Poll, st *pollState, now time.Time) {
@@ -527,6 +534,32 @@ func (l *Line) backoffRange(p *Poll) (lo, hi time.Duration) {
 		lo = p.Period
 	}
 	return lo, max(l.cfg.BackoffMax, lo)
+}
+
+// next is when poll p, due at due and read until end with result res, is
+// next due: on its grid (the start of Run plus a whole number of its
+// periods), at the first slot after due when it succeeded, at the first
+// slot at or after due + backoff when it failed, and not before end. A
+// poll that took longer than its period is due again at
+// max(due + step, end), off its grid: the line cannot keep its rate.
+func (l *Line) next(p *Poll, res Result, due time.Time, backoff time.Duration, end time.Time) time.Time {
+	if res.Elapsed >= p.Period {
+		return later(due.Add(max(backoff, p.Period)), end)
+	}
+	t := l.slotFrom(p, due.Add(1)) // the first slot after due
+	if res.Err != nil {
+		t = l.slotFrom(p, due.Add(backoff))
+	}
+	return later(t, l.slotFrom(p, end))
+}
+
+// slotFrom is the first slot of poll p's grid at or after t.
+func (l *Line) slotFrom(p *Poll, t time.Time) time.Time {
+	d := t.Sub(l.origin)
+	if d <= 0 {
+		return l.origin
+	}
+	return l.origin.Add((d + p.Period - 1) / p.Period * p.Period)
 }
 
 func later(a, b time.Time) time.Time {
