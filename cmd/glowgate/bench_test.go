@@ -230,18 +230,23 @@ func benchRun(b *testing.B, n, endpoints int, period time.Duration, qos, inFligh
 // beside it, and the CPU the daemon used over that time, in % of one core
 // (the simulator's and the broker's work is not in it, but the kernel's
 // loopback delivery of what the daemon sends is). The status page is on,
-// as by default; GLOWGATE_RSS_NO_HTTP=1 measures without it. Two cases:
-// the endpoint's requests one at a time (in_flight=1, the default) and all
-// 64 in flight at once (in_flight=64).
+// as by default; GLOWGATE_RSS_NO_HTTP=1 measures without it. Cases: the
+// endpoint's requests one at a time (in_flight=1, the default) and all 64
+// in flight at once (in_flight=64); and after_faults, where 16 heads went
+// silent for a second each, one after another, in the simulator's first
+// 6 s, and the measurement starts at its 8th second: the polls they
+// failed must fall due with the others again, or the gateway wakes more
+// often and batches less from then on.
 //
 //	go test -run '^$' -bench RunRSS -benchtime 1x ./cmd/glowgate/
 func BenchmarkRunRSS(b *testing.B) {
 	for _, n := range []int{1, 64} {
-		b.Run(fmt.Sprintf("in_flight=%d", n), func(b *testing.B) { benchRSS(b, n) })
+		b.Run(fmt.Sprintf("in_flight=%d", n), func(b *testing.B) { benchRSS(b, n, false) })
 	}
+	b.Run("in_flight=64/after_faults", func(b *testing.B) { benchRSS(b, 64, true) })
 }
 
-func benchRSS(b *testing.B, inFlight int) {
+func benchRSS(b *testing.B, inFlight int, faulted bool) {
 	broker := mqtttest.Start(b)
 	const heads = 64
 	names := make([]string, heads)
@@ -254,6 +259,15 @@ func benchRSS(b *testing.B, inFlight int) {
 	if os.Getenv("GLOWGATE_RSS_NO_HTTP") != "" {
 		text = strings.Replace(text, "unit: degC\n", "unit: degC\nhttp: {listen: \"\"}\n", 1)
 	}
+	settled := time.Now()
+	if faulted {
+		for i := range 16 {
+			name := fmt.Sprintf("  - name: %s\n", names[i])
+			text = strings.Replace(text, name, fmt.Sprintf("%s    sim: {faults: [{kind: silent, at: %v, for: 1s}]}\n",
+				name, 1500*time.Millisecond+time.Duration(i)*250*time.Millisecond), 1)
+		}
+		settled = settled.Add(8 * time.Second)
+	}
 	writeFile(b, cfgPath, text)
 	startSim(b, cfgPath, 1)
 	sub := mqtttest.Subscribe(b, broker.URL(), "glowgate/+/+/reading")
@@ -261,6 +275,14 @@ func benchRSS(b *testing.B, inFlight int) {
 	p := start(b, io.Discard, "run", "-config", cfgPath)
 	if _, ok := sub.Next(10 * time.Second); !ok {
 		b.Fatal("no readings")
+	}
+	for wait := time.After(time.Until(settled)); ; {
+		select {
+		case <-sub.C:
+			continue
+		case <-wait:
+		}
+		break
 	}
 	received := 0
 	began, cpu0 := time.Now(), procCPU(b, p.cmd.Process.Pid)
