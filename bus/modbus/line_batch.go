@@ -7,8 +7,8 @@ import (
 	"time"
 )
 
-// slot is one request of a batch: request k of poll p.
-type slot struct{ p, k int }
+// reqRef names one request of a batch: request k of poll p.
+type reqRef struct{ p, k int }
 
 // inProgress is a poll being read in batches.
 type inProgress struct {
@@ -22,9 +22,9 @@ type inProgress struct {
 // batchState is the storage pollBatches reuses from one round to the next.
 type batchState struct {
 	due   []int        // polls due now, earliest first
-	slots []slot       // their requests, in order
+	refs  []reqRef     // their requests, in order
 	reqs  []Request    // the requests of the batch being read
-	retry []slot       // requests to read again after a damaged frame
+	retry []reqRef     // requests to read again after a damaged frame
 	polls []inProgress // per poll
 }
 
@@ -48,17 +48,17 @@ func (l *Line) pollBatches(ctx context.Context, states []pollState) bool {
 		}
 	}
 	slices.SortStableFunc(b.due, func(x, y int) int { return states[x].due.Compare(states[y].due) })
-	b.slots = b.slots[:0]
+	b.refs = b.refs[:0]
 	for _, i := range b.due {
 		for k := range l.polls[i].Requests {
-			b.slots = append(b.slots, slot{i, k})
+			b.refs = append(b.refs, reqRef{i, k})
 		}
 		b.polls[i] = inProgress{left: len(l.polls[i].Requests), errK: -1}
 	}
 	br := l.r.(BatchReader)
-	for len(b.slots) > 0 {
-		chunk := b.slots[:min(len(b.slots), l.cfg.InFlight)]
-		b.slots = b.slots[len(chunk):]
+	for len(b.refs) > 0 {
+		chunk := b.refs[:min(len(b.refs), l.cfg.InFlight)]
+		b.refs = b.refs[len(chunk):]
 		if !l.readBatch(ctx, br, states, chunk) {
 			return false
 		}
@@ -67,7 +67,7 @@ func (l *Line) pollBatches(ctx context.Context, states []pollState) bool {
 }
 
 // readBatch reads the requests of chunk together and resolves them.
-func (l *Line) readBatch(ctx context.Context, br BatchReader, states []pollState, chunk []slot) bool {
+func (l *Line) readBatch(ctx context.Context, br BatchReader, states []pollState, chunk []reqRef) bool {
 	b := &l.batch
 	b.reqs, b.retry = b.reqs[:0], b.retry[:0]
 	stamp, start := l.now(), time.Now()
@@ -111,7 +111,7 @@ func (l *Line) readBatch(ctx context.Context, br BatchReader, states []pollState
 
 // resolve takes the outcome of request s.k of poll s.p, and delivers the
 // poll when it was its last.
-func (l *Line) resolve(states []pollState, s slot, regs []uint16, err error) {
+func (l *Line) resolve(states []pollState, s reqRef, regs []uint16, err error) {
 	pe := &l.batch.polls[s.p]
 	if err == nil {
 		l.blocks[s.p][s.k] = append(l.blocks[s.p][s.k][:0], regs...)
