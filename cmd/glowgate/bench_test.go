@@ -66,6 +66,7 @@ func BenchmarkRunEndToEnd(b *testing.B) {
 		{"heads=50/endpoints=50/flat-out/qos=0", 50, 50, 2 * time.Millisecond, 0, 1},
 		{"heads=50/1000-per-s", 50, 1, 50 * time.Millisecond, 1, 1},
 		{"heads=50/1000-per-s/qos=0", 50, 1, 50 * time.Millisecond, 0, 1},
+		{"heads=50/1000-per-s/in_flight=50", 50, 1, 50 * time.Millisecond, 1, 50},
 		{"heads=64/10Hz", 64, 1, 100 * time.Millisecond, 1, 1},
 		{"heads=64/10Hz/in_flight=64", 64, 1, 100 * time.Millisecond, 1, 64},
 	} {
