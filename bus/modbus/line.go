@@ -19,8 +19,12 @@ type Poll struct {
 
 // Result is the outcome of one poll, handed to the Line's deliver function.
 type Result struct {
-	Poll int       // index into the polls given to NewLine
-	Time time.Time // acquisition time: when the first request was sent, from LineConfig.Now
+	Poll int // index into the polls given to NewLine
+	// Time is the acquisition time, from LineConfig.Now: when the poll's
+	// first request was sent or, in a batch, when the answer before that
+	// request's answer arrived (the batch's send time for the first
+	// answer), the earliest a server that answers in turn can have read it.
+	Time time.Time
 	// Blocks holds the registers read, one slice per request of the poll in
 	// its order; nil on error. The slices are the Line's and valid only
 	// during the deliver call.

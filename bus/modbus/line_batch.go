@@ -15,7 +15,7 @@ type inProgress struct {
 	left  int // requests not yet resolved
 	errK  int // the request whose error fails the poll: the first failed, in request order
 	err   error
-	stamp time.Time // Result.Time: when its first batch was sent, from LineConfig.Now
+	stamp time.Time // Result.Time, from LineConfig.Now (see readBatch)
 	start time.Time
 }
 
@@ -77,12 +77,22 @@ func (l *Line) readBatch(ctx context.Context, br BatchReader, states []pollState
 			pe.stamp, pe.start = stamp, start
 		}
 	}
+	// A server that answers in turn reads a request only once it has
+	// answered the one before: a poll's registers were read after the
+	// answer that came before its first request's answer, not at the
+	// batch's send time, which behind a slow serial line can be many
+	// transactions earlier.
+	before := stamp
 	rctx, cancel := context.WithTimeout(ctx, l.cfg.Timeout)
 	br.ReadBatch(rctx, b.reqs, func(i int, regs []uint16, err error) {
 		if ctx.Err() != nil {
 			return
 		}
 		s := chunk[i]
+		if s.k == 0 {
+			b.polls[s.p].stamp = before
+		}
+		before = l.now()
 		c := &l.stats[s.p]
 		if err == nil && len(regs) != int(b.reqs[i].Quantity) {
 			err = fmt.Errorf("%v: %w: %d registers for %d asked", b.reqs[i], ErrShortResponse, len(regs), b.reqs[i].Quantity)

@@ -209,3 +209,24 @@ func TestLineBatchesWithClient(t *testing.T) {
 		t.Errorf("busy time %v of %v running, transactions summing to %v", s.BusyTime, s.Running, s.Times.Sum)
 	}
 }
+
+// In a batch a poll is stamped with the arrival of the answer before its
+// own (the batch's send time for the first answer): a server that
+// answers in turn, like a gateway to a serial line, reads each request
+// only after answering the one before.
+func TestLineBatchStampsAfterTheAnswerBefore(t *testing.T) {
+	synctest.Test(t, func(t *testing.T) {
+		fr := &batchFake{fakeReader: newFakeReader(map[uint16]behaviour{
+			1: takes(20 * time.Millisecond), 2: takes(40 * time.Millisecond), 3: takes(60 * time.Millisecond),
+		})}
+		t0 := time.Now()
+		stamps := map[int]time.Duration{}
+		l := modbus.NewLine(modbus.LineConfig{Name: "l", InFlight: 3}, fr,
+			[]modbus.Poll{poll("third", 3, time.Second), poll("first", 1, time.Second), poll("second", 2, time.Second)},
+			func(r modbus.Result) { stamps[r.Poll] = r.Time.Sub(t0) })
+		runFor(t, l, 500*time.Millisecond)
+		if want := map[int]time.Duration{1: 0, 2: 20 * time.Millisecond, 0: 40 * time.Millisecond}; fmt.Sprint(stamps) != fmt.Sprint(want) {
+			t.Errorf("stamps %v, want %v", stamps, want)
+		}
+	})
+}
