@@ -388,7 +388,7 @@ func FuzzProcessorStep(f *testing.F) {
 	f.Add(int64(0), int64(100e6), 1000.0, 1100.0, true, false, uint8(0))
 	f.Add(int64(-5e9), int64(0), math.NaN(), math.Inf(1), true, true, uint8(1))
 	f.Add(int64(math.MaxInt64), int64(math.MinInt64), 1e300, -1e300, false, true, uint8(2))
-	f.Add(int64(1), int64(-1), 5e-324, -0.0, true, true, uint8(3))
+	f.Add(int64(1), int64(-1), 5e-324, math.Copysign(0, -1), true, true, uint8(3))
 	f.Fuzz(func(t *testing.T, d1, d2 int64, a, b float64, va, vb bool, kind uint8) {
 		cfg := convert.ProcessConfig{
 			Average: 250 * time.Millisecond, MaxSamples: 4, T90: 700 * time.Millisecond,

@@ -594,18 +594,6 @@ func (d *Daemon) Latest() []mqtt.Reading {
 	return out
 }
 
-// outboxDepth is how many messages wait to be published: in the durable
-// outbox, or in the publisher's queue without one.
-func (d *Daemon) outboxDepth() int {
-	d.mu.Lock()
-	ob := d.outbox
-	d.mu.Unlock()
-	if ob != nil {
-		return ob.Stats().Depth
-	}
-	return d.PublisherStats().Queued
-}
-
 // PublisherStats reports the publisher's counters.
 func (d *Daemon) PublisherStats() mqtt.Stats {
 	d.mu.Lock()

@@ -10,6 +10,7 @@ import (
 	"time"
 
 	bolt "go.etcd.io/bbolt"
+	berrors "go.etcd.io/bbolt/errors"
 )
 
 // The outbox file is a bbolt database with three top-level buckets:
@@ -239,9 +240,9 @@ func checkFile(path string) (st fileState, err error) {
 // openError explains an error of bolt.Open.
 func openError(path string, err error) error {
 	switch {
-	case errors.Is(err, bolt.ErrTimeout):
+	case errors.Is(err, berrors.ErrTimeout):
 		return fmt.Errorf("%s: in use by another process (file lock held)", path)
-	case errors.Is(err, bolt.ErrInvalid), errors.Is(err, bolt.ErrChecksum), errors.Is(err, bolt.ErrVersionMismatch):
+	case errors.Is(err, berrors.ErrInvalid), errors.Is(err, berrors.ErrChecksum), errors.Is(err, berrors.ErrVersionMismatch):
 		return fmt.Errorf("%s: not an outbox file, or damaged: %w", path, err)
 	}
 	return fmt.Errorf("%s: %w", path, err)

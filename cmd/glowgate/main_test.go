@@ -1,7 +1,6 @@
 package main
 
 import (
-	"bufio"
 	"bytes"
 	"context"
 	"encoding/json"
@@ -386,8 +385,8 @@ func TestConvertCommand(t *testing.T) {
 	if r["quality"] != "good" || r["unit"] != "degC" || r["gateway"] != "lifecycle-gw" {
 		t.Errorf("reading: %s", out)
 	}
-	if sc := bufio.NewScanner(strings.NewReader(out)); sc.Scan() && sc.Scan() {
-		t.Errorf("convert printed more than one line: %q", out)
+	if lines := strings.Count(strings.TrimSuffix(out, "\n"), "\n") + 1; lines != 1 {
+		t.Errorf("convert printed %d lines, want one: %q", lines, out)
 	}
 }
 

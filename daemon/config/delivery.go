@@ -1,7 +1,6 @@
 package config
 
 import (
-	"fmt"
 	"net"
 	"net/url"
 	"os"
@@ -206,14 +205,6 @@ func isLoopback(host string) bool {
 	}
 	ip := net.ParseIP(host)
 	return ip != nil && ip.IsLoopback()
-}
-
-// redacted is how a password shows in summaries.
-func redacted(p string) string {
-	if p == "" {
-		return "none"
-	}
-	return fmt.Sprintf("set (%d characters, not shown)", len(p))
 }
 
 // defaultHTTPListen is where the status page, /metrics and /healthz are
