@@ -52,9 +52,16 @@ func float32Words(v float64) string {
 }
 
 // TestIndependentPeer: Debian python3-pymodbus serves the scipy band
-// radiances of blackbodies at three temperatures; the daemon polls it and
-// publishes each temperature within 0.01 K.
+// radiances of blackbodies at three temperatures; the daemon polls it,
+// one request at a time and then with all three in flight, and publishes
+// each temperature within 0.01 K.
 func TestIndependentPeer(t *testing.T) {
+	for _, inFlight := range []int{1, 3} {
+		t.Run(fmt.Sprintf("in_flight=%d", inFlight), func(t *testing.T) { independentPeer(t, inFlight) })
+	}
+}
+
+func independentPeer(t *testing.T, inFlight int) {
 	table := bandRadiance(t)
 	temps := []float64{973.15, 1400, 1873.15}
 	spec := `{"units": [`
@@ -78,12 +85,19 @@ func TestIndependentPeer(t *testing.T) {
 	}
 	peer := modbustest.StartPymodbus(t, "--spec", specFile)
 	broker := mqtttest.Start(t)
-	cfg := parseConfig(t, fmt.Sprintf(threeHeads, broker.URL(), peer, heads))
+	text := strings.Replace(fmt.Sprintf(threeHeads, broker.URL(), peer, heads), "    timeout: 200ms\n",
+		fmt.Sprintf("    timeout: 200ms\n    in_flight: %d\n", inFlight), 1)
+	cfg := parseConfig(t, text)
+	if cfg.Endpoints[0].InFlight != inFlight {
+		t.Fatalf("in_flight %d, want %d", cfg.Endpoints[0].InFlight, inFlight)
+	}
 	sub := mqtttest.Subscribe(t, broker.URL(), mqtt.Topics{Root: cfg.MQTT.Root, Gateway: cfg.Gateway}.Reading("+"))
 	startDaemon(t, Options{Config: cfg})
 
-	got := map[string]bool{}
-	for len(got) < len(temps) {
+	// Every head twice: the second round of a batch is read on the
+	// connection the first one used.
+	got := map[string]int{}
+	for twice := 0; twice < len(temps); {
 		m, ok := sub.Next(20 * time.Second)
 		if !ok {
 			t.Fatalf("readings from %v only", got)
@@ -100,6 +114,8 @@ func TestIndependentPeer(t *testing.T) {
 		if r.Quality != "good" || r.RawTemperature == nil || math.Abs(*r.RawTemperature-want) > 0.01 {
 			t.Errorf("%s: want %.3f K (scipy), got %s", r.Head, want, m.Payload)
 		}
-		got[r.Head] = true
+		if got[r.Head]++; got[r.Head] == 2 {
+			twice++
+		}
 	}
 }
