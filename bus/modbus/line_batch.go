@@ -83,7 +83,10 @@ func (l *Line) readBatch(ctx context.Context, br BatchReader, states []pollState
 	// batch's send time, which behind a slow serial line can be many
 	// transactions earlier.
 	before := stamp
-	rctx, cancel := context.WithTimeout(ctx, l.cfg.Timeout)
+	// The reader gives each request its Timeout from the answer before
+	// it (Client.ReadBatch); the batch as a whole takes at most what its
+	// requests could one at a time.
+	rctx, cancel := context.WithTimeout(ctx, time.Duration(len(chunk))*l.cfg.Timeout)
 	br.ReadBatch(rctx, b.reqs, func(i int, regs []uint16, err error) {
 		if ctx.Err() != nil {
 			return

@@ -89,7 +89,9 @@ func TestLineBatchesPollsDueTogether(t *testing.T) {
 
 // A poll is delivered when its own answers are in: a silent head in the
 // same batch delays the next batch, not the others' readings. The first
-// failure in request order fails a poll.
+// failure in request order fails a poll. The fake reader has no timeout
+// of its own, so its silent requests end with the batch's bound: five
+// requests × 50 ms.
 func TestLineBatchDeliversEachPollWhenAnswered(t *testing.T) {
 	synctest.Test(t, func(t *testing.T) {
 		fr := &batchFake{fakeReader: newFakeReader(map[uint16]behaviour{
@@ -111,10 +113,10 @@ func TestLineBatchDeliversEachPollWhenAnswered(t *testing.T) {
 		runFor(t, l, 500*time.Millisecond)
 		want := []delivered{
 			{2 * time.Millisecond, 1, modbus.KindNone},
-			{50 * time.Millisecond, 0, modbus.KindTimeout},
+			{250 * time.Millisecond, 0, modbus.KindTimeout},
 			// Its request 3 failed at once, 4 timed out: the first in
 			// order is the poll's error.
-			{50 * time.Millisecond, 2, modbus.KindConnection},
+			{250 * time.Millisecond, 2, modbus.KindConnection},
 		}
 		// The two timeouts end together, in either order.
 		slices.SortStableFunc(got, func(a, b delivered) int { return cmp.Or(cmp.Compare(a.at, b.at), cmp.Compare(a.poll, b.poll)) })

@@ -33,9 +33,11 @@ type BatchReader interface {
 // An invalid request fails at once and nothing is sent for it. An answer
 // paired with its request fails that request only when it is an exception
 // or does not fit (unit id, function code, register count): the framing
-// around it held, so the answers after it are still sound. A request
-// without an answer by the deadline (the earlier of the client's timeout
-// from the write and ctx's deadline) fails with ErrTimeout; a broken
+// around it held, so the answers after it are still sound. The client's
+// timeout runs from the write and starts again at each answer, so that a
+// server that answers in turn (a gateway to a serial line) has the whole
+// timeout for each request, as one at a time; ctx's deadline bounds it
+// all. A request without an answer by then fails with ErrTimeout; a broken
 // connection, an answer that pairs with no request in flight, a length
 // field out of range or bytes after the last answer fail every request
 // still unanswered. After any of those the connection is closed, as after
@@ -128,6 +130,7 @@ func (c *Client) exchange(reqs []Request, got func(i int, regs []uint16, err err
 	}
 	for b.pending > 0 {
 		// Take every whole answer the buffer holds, then read more.
+		waiting := b.pending
 		for len(b.in) >= mbapHeader {
 			end, err := aduLength(b.in)
 			if err != nil {
@@ -143,6 +146,17 @@ func (c *Client) exchange(reqs []Request, got func(i int, regs []uint16, err err
 		}
 		if b.pending == 0 {
 			break
+		}
+		if b.pending < waiting {
+			// A server that answers in turn starts on the next request
+			// only now: the timeout starts again. (Cancelling ctx sets a
+			// deadline in the past: look at ctx after setting this one.)
+			if err := conn.SetDeadline(transactionDeadline(ctx, c.timeout)); err != nil {
+				return fmt.Errorf("%w: set deadline: %v", ErrConnection, err)
+			}
+			if err := ctx.Err(); err != nil {
+				return t.contextErr(ctx, err)
+			}
 		}
 		if len(b.in) == cap(b.in) {
 			b.in = append(b.in, 0)[:len(b.in)] // room for at least the rest of one answer

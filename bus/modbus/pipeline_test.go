@@ -119,6 +119,36 @@ func TestReadBatchTimeoutFailsOnlyTheUnanswered(t *testing.T) {
 	}
 }
 
+// A server that answers in turn, each answer 150 ms after the one
+// before, gets the whole 250 ms timeout for each request: the timeout
+// starts again at every answer, as one at a time. The batch takes longer
+// than one timeout, and nothing fails.
+func TestReadBatchTimeoutRunsFromEachAnswer(t *testing.T) {
+	srv := modbustest.NewServer(t)
+	reqs := make([]modbus.Request, 4)
+	for u := range uint8(4) {
+		srv.Set(u+1, modbus.InputRegisters, 0, uint16(u+1))
+		srv.SetFault(u+1, modbustest.Fault{Kind: modbustest.Late, Delay: 150 * time.Millisecond})
+		reqs[u] = inputs(u+1, 0, 1)
+	}
+	c := modbus.NewTCPClient(srv.Addr(), 250*time.Millisecond)
+	defer c.Close()
+	start := time.Now()
+	for i, r := range readBatch(t, c, 5*time.Second, reqs...) {
+		if r.err != nil || r.regs[0] != uint16(i+1) {
+			t.Errorf("unit %d: %v, %v", i+1, r.regs, r.err)
+		}
+	}
+	if d := time.Since(start); d < 600*time.Millisecond {
+		t.Errorf("the batch took %v, want the four answers one after another (600 ms)", d)
+	}
+	// And the context's deadline still bounds the batch.
+	res := readBatch(t, c, 200*time.Millisecond, reqs...)
+	if res[0].err != nil || modbus.Kind(res[1].err) != modbus.KindTimeout || modbus.Kind(res[3].err) != modbus.KindTimeout {
+		t.Errorf("with a 200 ms context: %+v", res)
+	}
+}
+
 // An answer whose transaction id pairs with no request in flight fails
 // every request still waiting, and the connection is replaced.
 func TestReadBatchUnpairedAnswerFailsTheRest(t *testing.T) {
