@@ -11,9 +11,10 @@ import (
 
 // BatchReader is a Reader that can have several requests in flight on one
 // connection at once. *Client is one: Modbus TCP pairs each answer with
-// its request by the transaction identifier, so a client may send requests
-// without waiting for the answers to earlier ones (Modbus Messaging on
-// TCP/IP Implementation Guide V1.0b, 3.1.3 and 4.2). A serial line cannot.
+// its request by the transaction identifier of the MBAP header (Modbus
+// Messaging on TCP/IP Implementation Guide V1.0b, 3.1.3), so a client may
+// send requests without waiting for the answers to earlier ones. A serial
+// line cannot.
 type BatchReader interface {
 	Reader
 	// ReadBatch reads every request of reqs, all in flight together, and
