@@ -34,6 +34,11 @@ type LossConfig struct {
 	// Reflection is the signal fraction above which ReflectionSuspected
 	// is raised, e.g. 1.2; 0 turns the check off, otherwise > 1.
 	Reflection float64
+	// Critical, if not nil, is the table of critical values to compare
+	// with, shared with other detectors: its significance must be
+	// Significance and it must reach MaxSamples − 2 degrees of freedom.
+	// Nil builds one (milliseconds).
+	Critical *CriticalValues
 }
 
 // lossDefaultMinSamples is MinSamples when the configuration leaves it 0.
@@ -54,13 +59,6 @@ const lossMinWeight = 4.248354255291589e-18
 // lossMinChange is the smallest change of the mean ln f across the window
 // for which LossFit.Slope = ΔT/Δ is given.
 const lossMinChange = 1e-12
-
-// lossExactDF is the largest number of degrees of freedom for which a Loss
-// computes Student's t quantile with gonum's distuv (about 15–30 µs each,
-// so each is computed when first needed: a window usually holds a steady
-// number of samples); above it the Cornish–Fisher expansion in
-// studentTCritical is used.
-const lossExactDF = 256
 
 // Loss tells a neutral loss in the sight path (Obstructed) from a
 // spectrally selective one (SelectiveLoss) by how the ratio temperature
@@ -150,9 +148,9 @@ const lossExactDF = 256
 // rounding from accumulating), which costs O(MaxSamples) once.
 type Loss struct {
 	cfg    LossConfig
-	dropLn float64   // −ln(1 − Drop) > 0
-	tcrit  []float64 // tcrit[ν] = t_{1−p/2, ν}, ν = 1 … MaxSamples − 2; 0 until needed (critical)
-	tauAvg float64   // time constant of the lag of f̄², s
+	dropLn float64         // −ln(1 − Drop) > 0
+	crit   *CriticalValues // t_{1−p/2, ν}, ν = 1 … MaxSamples − 2
+	tauAvg float64         // time constant of the lag of f̄², s
 	clock  stepClock
 
 	ring windowRing
@@ -234,36 +232,29 @@ func NewLoss(c LossConfig) (*Loss, error) {
 		return nil, fmt.Errorf("convert: loss steady %g K: must be finite and ≥ 0", c.Steady)
 	case c.Reflection != 0 && !(finite(c.Reflection) && c.Reflection > 1):
 		return nil, fmt.Errorf("convert: loss reflection %g: must be 0 (off) or finite and > 1", c.Reflection)
+	case c.Critical != nil && c.Critical.Significance() != c.Significance:
+		return nil, fmt.Errorf("convert: loss critical values for significance %g, not %g", c.Critical.Significance(), c.Significance)
+	case c.Critical != nil && c.Critical.MaxDF() < c.MaxSamples-2:
+		return nil, fmt.Errorf("convert: loss critical values up to %d degrees of freedom, %d needed", c.Critical.MaxDF(), c.MaxSamples-2)
+	}
+	crit := c.Critical
+	if crit == nil {
+		var err error
+		if crit, err = NewCriticalValues(c.Significance, c.MaxSamples-2); err != nil {
+			return nil, err
+		}
 	}
 	l := &Loss{
 		cfg:    c,
 		dropLn: -math.Log1p(-c.Drop),
-		tcrit:  make([]float64, c.MaxSamples-1),
+		crit:   crit,
 		ring:   newWindowRing(c.MaxSamples),
 		xs:     make([]float64, c.MaxSamples),
 		ys:     make([]float64, c.MaxSamples),
 		gs:     make([]float64, c.MaxSamples),
 		tauAvg: c.Window.Seconds() / 10,
 	}
-	l.tcrit[0] = math.NaN()
 	return l, nil
-}
-
-// critical is t_{1−p/2, ν}, the two-sided critical value at the
-// configured significance p, computed on first use and kept.
-func (l *Loss) critical(nu int) float64 {
-	if t := l.tcrit[nu]; t != 0 {
-		return t
-	}
-	q := 1 - l.cfg.Significance/2
-	var t float64
-	if nu <= lossExactDF {
-		t = distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(nu)}.Quantile(q)
-	} else {
-		t = studentTCritical(distuv.UnitNormal.Quantile(q), float64(nu))
-	}
-	l.tcrit[nu] = t
-	return t
 }
 
 // studentTCritical returns the quantile of Student's t distribution with
@@ -429,7 +420,7 @@ func (l *Loss) fit(full bool) LossFit {
 	m := &l.sums
 	n := float64(s.N)
 	span := s.Span.Seconds()
-	s.Critical = l.critical(s.N - 2)
+	s.Critical = l.crit.At(s.N - 2)
 	// Centred sums of squares and products; a centred sum below
 	// lossRoundoff of its uncentred (shifted) sum is rounding, not
 	// variation.

@@ -457,6 +457,70 @@ func TestLossCriticalValues(t *testing.T) {
 	}
 }
 
+func mustCritical(t *testing.T, p float64, maxDF int) *convert.CriticalValues {
+	t.Helper()
+	c, err := convert.NewCriticalValues(p, maxDF)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return c
+}
+
+// The table against gonum's distuv.StudentsT.Quantile (the reference
+// library) and three handbook values of t_{0.975, ν} and t_{0.995, ν}
+// (12.706 at ν = 1, 2.042 at ν = 30, 3.169 at ν = 10 for p = 0.01; from
+// memory of the common two-sided tables).
+func TestCriticalValues(t *testing.T) {
+	c := mustCritical(t, 0.05, 300)
+	if c.Significance() != 0.05 || c.MaxDF() != 300 {
+		t.Errorf("significance %g, max df %d", c.Significance(), c.MaxDF())
+	}
+	for _, nu := range []int{1, 2, 7, 30, 256, 257, 300} {
+		want := distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(nu)}.Quantile(0.975)
+		if got := c.At(nu); math.Abs(got-want) > 1e-7*want {
+			t.Errorf("ν = %d: %.12g, want %.12g", nu, got, want)
+		}
+	}
+	for _, h := range []struct {
+		p    float64
+		nu   int
+		want float64
+	}{{0.05, 1, 12.706}, {0.05, 30, 2.042}, {0.01, 10, 3.169}} {
+		if got := mustCritical(t, h.p, h.nu).At(h.nu); math.Abs(got-h.want) > 5e-4 {
+			t.Errorf("t(p = %g, ν = %d) = %.4f, handbook %.3f", h.p, h.nu, got, h.want)
+		}
+	}
+	for _, nu := range []int{0, -1, 301} {
+		if v := c.At(nu); !math.IsNaN(v) {
+			t.Errorf("At(%d) = %g, want NaN", nu, v)
+		}
+	}
+	for _, bad := range []struct {
+		p  float64
+		df int
+	}{{0, 10}, {1, 10}, {math.NaN(), 10}, {0.05, 0}} {
+		if _, err := convert.NewCriticalValues(bad.p, bad.df); err == nil {
+			t.Errorf("NewCriticalValues(%g, %d) accepted", bad.p, bad.df)
+		}
+	}
+}
+
+// Detectors sharing one table judge as each with its own.
+func TestLossSharedCriticalValues(t *testing.T) {
+	own := lossConfig()
+	shared := own
+	shared.Critical = mustCritical(t, own.Significance, own.MaxSamples)
+	a, b := mustLoss(t, own), mustLoss(t, shared)
+	for k := range 300 {
+		f := 0.9 - 0.002*float64(k)
+		fa := a.Observe(procAt(0.1*float64(k)), 1500-0.3*float64(k), []float64{f, f})
+		fb := b.Observe(procAt(0.1*float64(k)), 1500-0.3*float64(k), []float64{f, f})
+		if ca, cb := a.Fit().Critical, b.Fit().Critical; fa != fb || (ca != cb && !(math.IsNaN(ca) && math.IsNaN(cb))) {
+			t.Fatalf("step %d: %v against %v", k, fa, fb)
+		}
+	}
+}
+
 func TestNewLossErrors(t *testing.T) {
 	ok := lossConfig()
 	for _, c := range []struct {
@@ -479,6 +543,8 @@ func TestNewLossErrors(t *testing.T) {
 		{func(c *convert.LossConfig) { c.Reflection = 0.9 }, "reflection 0.9"},
 		{func(c *convert.LossConfig) { c.Reflection = 1 }, "reflection 1"},
 		{func(c *convert.LossConfig) { c.Reflection = math.NaN() }, "reflection NaN"},
+		{func(c *convert.LossConfig) { c.Critical = mustCritical(t, c.Significance*2, c.MaxSamples) }, "critical values for significance"},
+		{func(c *convert.LossConfig) { c.Critical = mustCritical(t, c.Significance, c.MaxSamples-3) }, "degrees of freedom"},
 	} {
 		cfg := ok
 		c.edit(&cfg)

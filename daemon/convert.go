@@ -18,7 +18,7 @@ func Convert(cfg *config.Config, headName string, signals []float64, t time.Time
 	if len(signals) != len(hc.Channels) {
 		return mqtt.Reading{}, fmt.Errorf("head %s has %d channels, got %d signals", headName, len(hc.Channels), len(signals))
 	}
-	h, err := newHead(cfg, *hc)
+	h, err := newHead(cfg, *hc, nil)
 	if err != nil {
 		return mqtt.Reading{}, err
 	}

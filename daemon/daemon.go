@@ -136,8 +136,9 @@ func (d *Daemon) attachAlarms(heads, prev []*head) error {
 
 func buildHeads(cfg *config.Config) ([]*head, error) {
 	heads := make([]*head, 0, len(cfg.Heads))
+	crit := criticalTables{}
 	for _, hc := range cfg.Heads {
-		h, err := newHead(cfg, hc)
+		h, err := newHead(cfg, hc, crit)
 		if err != nil {
 			return nil, err
 		}

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -47,7 +48,7 @@ func kilnHead(t testing.TB, name string) *head {
 	t.Helper()
 	cfg := parseConfig(t, fmt.Sprintf(kilnHeads, "1.00"))
 	hc, _ := cfg.Head(name)
-	h, err := newHead(cfg, *hc)
+	h, err := newHead(cfg, *hc, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -154,4 +155,21 @@ func FuzzHeadReading(f *testing.F) {
 			t.Fatal(err)
 		}
 	})
+}
+
+// BenchmarkBuildHeads builds the runtime heads of 64 alike (a start or a
+// reload of the daemon), at 10 Hz with the default 10 s loss window.
+func BenchmarkBuildHeads(b *testing.B) {
+	var heads strings.Builder
+	for i := 1; i <= 64; i++ {
+		fmt.Fprintf(&heads, headTemplate, fmt.Sprintf("h%02d", i), i)
+	}
+	text := strings.ReplaceAll(fmt.Sprintf(threeHeads, "tcp://127.0.0.1:1883", "127.0.0.1:15020", heads.String()), "period: 20ms", "period: 100ms")
+	cfg := parseConfig(b, text)
+	for b.Loop() {
+		if _, err := buildHeads(cfg); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(b.Elapsed().Milliseconds())/float64(b.N), "ms/build")
 }
