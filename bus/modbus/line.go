@@ -120,10 +120,11 @@ const (
 // poll is delivered as soon as its last request is resolved, so a silent
 // head holds up the next batch for one Timeout, not the readings of its
 // own batch (the reader gives each request Timeout from the answer before
-// it, and a batch takes at most its number of requests × Timeout); the first failed request in a poll's order is its error; a
-// damaged frame is read again once, on its own, after its batch. At 64
-// heads × 10 Hz on one endpoint, batches of 64 took 2.6 times less CPU than
-// one at a time (BENCHMARKS.md).
+// it, and a batch takes at most its number of requests × Timeout). The
+// first failed request in a poll's order is its error; a damaged frame is
+// read again once, on its own, after its batch; Result.Time says when a
+// batch's poll was read. At 64 heads × 10 Hz on one endpoint, batches of
+// 64 took 2.6 times less CPU than one at a time (BENCHMARKS.md).
 //
 // The scheduler runs on the runtime clock (time.Now and timers, which
 // testing/synctest fakes); LineConfig.Now only stamps the results.
