@@ -28,7 +28,7 @@ type batchState struct {
 	polls []inProgress // per poll
 }
 
-// pollBatches reads every poll that is due, its requests and theirs in
+// pollBatches reads every poll that is due: their requests, in order, in
 // batches of up to InFlight requests, each batch in flight at once. A poll
 // is delivered as soon as the last of its requests is resolved, so an
 // answer does not wait for a slower one of another poll; a request whose
@@ -56,10 +56,8 @@ func (l *Line) pollBatches(ctx context.Context, states []pollState) bool {
 		b.polls[i] = inProgress{left: len(l.polls[i].Requests), errK: -1}
 	}
 	br := l.r.(BatchReader)
-	for len(b.refs) > 0 {
-		chunk := b.refs[:min(len(b.refs), l.cfg.InFlight)]
-		b.refs = b.refs[len(chunk):]
-		if !l.readBatch(ctx, br, states, chunk) {
+	for from := 0; from < len(b.refs); from += l.cfg.InFlight {
+		if !l.readBatch(ctx, br, states, b.refs[from:min(from+l.cfg.InFlight, len(b.refs))]) {
 			return false
 		}
 	}
