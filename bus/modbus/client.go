@@ -70,7 +70,9 @@ type DialFunc func(ctx context.Context) (net.Conn, error)
 //     context's deadline, and cancelling the context interrupts the Read;
 //   - no idle-close timer runs behind the owner's back.
 //
-// A Client is owned by one goroutine: it is not safe for concurrent use.
+// Read has one request in flight at a time; ReadBatch has several, paired
+// with their answers by transaction id. A Client is owned by one
+// goroutine: it is not safe for concurrent use.
 type Client struct {
 	timeout time.Duration
 	framer  *gmodbus.TCPClientHandler // used as packager only: its transport never connects
