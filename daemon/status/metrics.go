@@ -18,7 +18,7 @@ import (
 type collector struct {
 	s                                        *Server
 	temperature, fraction, readings          *prometheus.Desc
-	polls, pollErrors, transaction           *prometheus.Desc
+	polls, pollErrors, transaction, busy     *prometheus.Desc
 	outboxDepth, outboxOldest, outboxDropped *prometheus.Desc
 	published, brokerConnected               *prometheus.Desc
 	alarmsActive, buildInfo                  *prometheus.Desc
@@ -34,6 +34,7 @@ func newCollector(s *Server) *collector {
 		polls:           d("glowgate_polls_total", "Polls of the head on its field-bus line, failed ones included.", []string{"line", "head"}, nil),
 		pollErrors:      d("glowgate_poll_errors_total", "Failed transactions of the head's polls by kind (timeout, exception, connection, malformed, frame).", []string{"line", "head", "kind"}, nil),
 		transaction:     d("glowgate_transaction_seconds", "Time of one Modbus transaction (a request and its answer or failure) on the line.", []string{"line"}, nil),
+		busy:            d("glowgate_line_busy_seconds_total", "Time the line had a transaction in flight; with several requests in flight at once, counted once. Its rate is the line's busy fraction.", []string{"line"}, nil),
 		outboxDepth:     d("glowgate_outbox_depth", "Messages waiting in the outbox to be published.", nil, nil),
 		outboxOldest:    d("glowgate_outbox_oldest_seconds", "Age of the oldest message waiting in the outbox; 0 when it is empty.", nil, nil),
 		outboxDropped:   d("glowgate_outbox_dropped_total", "Messages dropped because the outbox was full.", nil, nil),
@@ -46,7 +47,7 @@ func newCollector(s *Server) *collector {
 
 func (c *collector) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{
-		c.temperature, c.fraction, c.readings, c.polls, c.pollErrors, c.transaction,
+		c.temperature, c.fraction, c.readings, c.polls, c.pollErrors, c.transaction, c.busy,
 		c.outboxDepth, c.outboxOldest, c.outboxDropped, c.published, c.brokerConnected,
 		c.alarmsActive, c.buildInfo,
 	} {
@@ -108,6 +109,7 @@ func (c *collector) Collect(ch chan<- prometheus.Metric) {
 	ch <- must(c.buildInfo, gauge, 1, s.o.Version)
 
 	for _, ls := range lines {
+		ch <- must(c.busy, counter, ls.BusyTime.Seconds(), ls.Name)
 		for _, p := range ls.Polls {
 			ch <- must(c.polls, counter, float64(p.Polls), ls.Name, p.Name)
 			for k := modbus.KindTimeout; k <= modbus.KindFrame; k++ {

@@ -89,29 +89,31 @@ func TestMetrics(t *testing.T) {
 
 	// Types, as Prometheus practice names them: _total counters, base units.
 	types := map[string]dto.MetricType{
-		"glowgate_temperature_celsius":   dto.MetricType_GAUGE,
-		"glowgate_signal_fraction_ratio": dto.MetricType_GAUGE,
-		"glowgate_readings_total":        dto.MetricType_COUNTER,
-		"glowgate_polls_total":           dto.MetricType_COUNTER,
-		"glowgate_poll_errors_total":     dto.MetricType_COUNTER,
-		"glowgate_transaction_seconds":   dto.MetricType_HISTOGRAM,
-		"glowgate_outbox_depth":          dto.MetricType_GAUGE,
-		"glowgate_outbox_oldest_seconds": dto.MetricType_GAUGE,
-		"glowgate_outbox_dropped_total":  dto.MetricType_COUNTER,
-		"glowgate_published_total":       dto.MetricType_COUNTER,
-		"glowgate_broker_connected":      dto.MetricType_GAUGE,
-		"glowgate_alarms_active":         dto.MetricType_GAUGE,
-		"glowgate_build_info":            dto.MetricType_GAUGE,
+		"glowgate_temperature_celsius":     dto.MetricType_GAUGE,
+		"glowgate_signal_fraction_ratio":   dto.MetricType_GAUGE,
+		"glowgate_readings_total":          dto.MetricType_COUNTER,
+		"glowgate_polls_total":             dto.MetricType_COUNTER,
+		"glowgate_poll_errors_total":       dto.MetricType_COUNTER,
+		"glowgate_transaction_seconds":     dto.MetricType_HISTOGRAM,
+		"glowgate_line_busy_seconds_total": dto.MetricType_COUNTER,
+		"glowgate_outbox_depth":            dto.MetricType_GAUGE,
+		"glowgate_outbox_oldest_seconds":   dto.MetricType_GAUGE,
+		"glowgate_outbox_dropped_total":    dto.MetricType_COUNTER,
+		"glowgate_published_total":         dto.MetricType_COUNTER,
+		"glowgate_broker_connected":        dto.MetricType_GAUGE,
+		"glowgate_alarms_active":           dto.MetricType_GAUGE,
+		"glowgate_build_info":              dto.MetricType_GAUGE,
 	}
 	labelSets := map[string]string{
-		"glowgate_temperature_celsius":   "head",
-		"glowgate_signal_fraction_ratio": "channel,head",
-		"glowgate_readings_total":        "head,quality",
-		"glowgate_polls_total":           "head,line",
-		"glowgate_poll_errors_total":     "head,kind,line",
-		"glowgate_transaction_seconds":   "line",
-		"glowgate_alarms_active":         "priority",
-		"glowgate_build_info":            "version",
+		"glowgate_temperature_celsius":     "head",
+		"glowgate_signal_fraction_ratio":   "channel,head",
+		"glowgate_readings_total":          "head,quality",
+		"glowgate_polls_total":             "head,line",
+		"glowgate_poll_errors_total":       "head,kind,line",
+		"glowgate_transaction_seconds":     "line",
+		"glowgate_line_busy_seconds_total": "line",
+		"glowgate_alarms_active":           "priority",
+		"glowgate_build_info":              "version",
 	}
 	for name, typ := range types {
 		f := fams[name]
@@ -185,6 +187,9 @@ func TestMetrics(t *testing.T) {
 	}
 	if len(kinds) != 5 || !kinds["frame"] || kinds["none"] {
 		t.Errorf("error kinds %v, want timeout, exception, connection, malformed, frame", kinds)
+	}
+	if busy := find(t, fams, "glowgate_line_busy_seconds_total", map[string]string{"line": "melt-shop"}).GetCounter().GetValue(); !near(busy, 0.8, 1e-9) {
+		t.Errorf("busy seconds %v, want 0.8", busy)
 	}
 	hist := find(t, fams, "glowgate_transaction_seconds", map[string]string{"line": "melt-shop"}).GetHistogram()
 	if hist.GetSampleCount() != 200 || !near(hist.GetSampleSum(), 0.8, 1e-9) || len(hist.GetBucket()) != len(modbus.TransactionTimeBounds)+1 { // +Inf included
