@@ -370,3 +370,50 @@ func BenchmarkClientReadBatch(b *testing.B) {
 	}
 	b.ReportMetric(float64(b.N*len(reqs))/b.Elapsed().Seconds(), "reads/s")
 }
+
+// A server that takes one request at a time and drops whatever came with
+// it (it reads what has arrived, answers the first request in it and
+// discards the rest) answers the first request of each batch; the others
+// time out, the connection is replaced, and no answer ever lands on
+// another request.
+func TestReadBatchServerThatDropsTheRest(t *testing.T) {
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer ln.Close()
+	go func() {
+		for {
+			conn, err := ln.Accept()
+			if err != nil {
+				return
+			}
+			go func() {
+				defer conn.Close()
+				buf := make([]byte, 4096)
+				for {
+					n, err := conn.Read(buf)
+					if err != nil || n < 12 {
+						return
+					}
+					q := buf[:12] // the first request; the rest of buf is dropped
+					conn.Write([]byte{q[0], q[1], 0, 0, 0, 5, q[6], q[7], 2, q[6], q[9]})
+				}
+			}()
+		}
+	}()
+	c := modbus.NewTCPClient(ln.Addr().String(), 100*time.Millisecond)
+	defer c.Close()
+	reqs := []modbus.Request{inputs(1, 1, 1), inputs(2, 2, 1), inputs(3, 3, 1)}
+	for round := range 3 {
+		res := readBatch(t, c, 5*time.Second, reqs...)
+		if res[0].err != nil || res[0].regs[0] != 0x0101 {
+			t.Errorf("round %d, first request: %v, %v", round, res[0].regs, res[0].err)
+		}
+		for _, r := range res[1:] {
+			if modbus.Kind(r.err) != modbus.KindTimeout || r.regs != nil {
+				t.Errorf("round %d: %v, %v; want a timeout", round, r.regs, r.err)
+			}
+		}
+	}
+}
