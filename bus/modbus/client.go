@@ -151,18 +151,29 @@ func readRegisters(mb gmodbus.Client, r Request, buf []uint16) ([]uint16, error)
 	} else {
 		b, err = mb.ReadInputRegisters(r.Address, r.Quantity)
 	}
-	if err == nil && len(b) != 2*int(r.Quantity) {
-		err = fmt.Errorf("%w: %d registers for %d asked", ErrShortResponse, len(b)/2, r.Quantity)
+	var regs []uint16
+	if err == nil {
+		regs, err = decodeRegisters(r, b, buf)
 	}
 	if err != nil {
 		return nil, fmt.Errorf("%v: %w", r, classify(err, r.Table.function()))
+	}
+	return regs, nil
+}
+
+// decodeRegisters checks that data (an answer's register bytes) holds
+// exactly the registers r asked for, ErrShortResponse if not, and decodes
+// them into buf's storage (grown to MaxQuantity when short).
+func decodeRegisters(r Request, data []byte, buf []uint16) ([]uint16, error) {
+	if len(data) != 2*int(r.Quantity) {
+		return nil, fmt.Errorf("%w: %d registers for %d asked", ErrShortResponse, len(data)/2, r.Quantity)
 	}
 	if cap(buf) < int(r.Quantity) {
 		buf = make([]uint16, MaxQuantity)
 	}
 	regs := buf[:r.Quantity]
 	for i := range regs {
-		regs[i] = binary.BigEndian.Uint16(b[2*i:])
+		regs[i] = binary.BigEndian.Uint16(data[2*i:])
 	}
 	return regs, nil
 }

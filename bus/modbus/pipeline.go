@@ -104,9 +104,6 @@ func (b *batch) reset(n int) {
 	clear(b.adus)
 	clear(b.answered)
 	b.pending, b.out, b.in = 0, b.out[:0], b.in[:0]
-	if b.regs == nil {
-		b.regs = make([]uint16, MaxQuantity)
-	}
 }
 
 // exchange writes the batch's requests and hands out answers until none is
@@ -227,13 +224,9 @@ func (c *Client) registers(r Request, req, resp []byte) ([]uint16, error) {
 	if len(pdu.Data) == 0 || int(pdu.Data[0]) != len(pdu.Data)-1 {
 		return nil, fmt.Errorf("%w: byte count does not match the answer's length", ErrMalformed)
 	}
-	data := pdu.Data[1:]
-	if len(data) != 2*int(r.Quantity) {
-		return nil, fmt.Errorf("%w: %d registers for %d asked", ErrShortResponse, len(data)/2, r.Quantity)
+	regs, err := decodeRegisters(r, pdu.Data[1:], c.batch.regs)
+	if err == nil {
+		c.batch.regs = regs[:cap(regs)]
 	}
-	regs := c.batch.regs[:r.Quantity]
-	for k := range regs {
-		regs[k] = binary.BigEndian.Uint16(data[2*k:])
-	}
-	return regs, nil
+	return regs, err
 }

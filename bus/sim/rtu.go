@@ -4,12 +4,13 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"glowgate/bus/modbus"
 	"io/fs"
 	"log/slog"
 	"os"
 	"sync"
 	"time"
+
+	"glowgate/bus/modbus"
 )
 
 // RTUConfig configures an RTUServer.
